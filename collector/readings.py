@@ -1,0 +1,224 @@
+"""The data every source hands to the rule layer: one columnar batch per device poll.
+
+A batch is long-form: one row per (optic, lane, quantity). Values are already in the
+units the rules work in (dBm for optical power, mA for bias, degrees C, volts), so no
+layer after the collector converts units. Rows carry a status instead of sentinel
+numbers: a dark receiver is ``NO_LIGHT`` with ``value`` NaN, never -inf or -40.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from enum import IntEnum
+
+import numpy as np
+
+
+class Quantity(IntEnum):
+    """What a reading measures. The integer codes are stable: arrays store them."""
+
+    RX_POWER = 0  # dBm
+    TX_POWER = 1  # dBm
+    BIAS = 2  # mA
+    TEMPERATURE = 3  # degrees C
+    SUPPLY = 4  # V
+
+    @property
+    def unit(self) -> str:
+        return _UNITS[self]
+
+    @property
+    def label(self) -> str:
+        """Short name used in metrics labels, JSON and pages."""
+        return _LABELS[self]
+
+
+_UNITS = {
+    Quantity.RX_POWER: "dBm",
+    Quantity.TX_POWER: "dBm",
+    Quantity.BIAS: "mA",
+    Quantity.TEMPERATURE: "C",
+    Quantity.SUPPLY: "V",
+}
+_LABELS = {
+    Quantity.RX_POWER: "rx_power",
+    Quantity.TX_POWER: "tx_power",
+    Quantity.BIAS: "bias",
+    Quantity.TEMPERATURE: "temperature",
+    Quantity.SUPPLY: "supply",
+}
+
+#: Quantities measured per lane; the others are per module (stored with lane 0).
+LANE_QUANTITIES = (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS)
+MODULE_QUANTITIES = (Quantity.TEMPERATURE, Quantity.SUPPLY)
+
+
+class ReadingStatus(IntEnum):
+    """Whether a row holds a usable value, and if not, why."""
+
+    OK = 0
+    NO_LIGHT = 1  # optical power reading of zero: no dBm value exists
+    UNAVAILABLE = 2  # sensor present but not reporting (e.g. RFC 3433 operStatus != ok)
+    UNSUPPORTED = 3  # the module or platform does not measure this
+    INVALID = 4  # the device sent something that is not a number we can trust
+
+
+@dataclass(slots=True, frozen=True)
+class Thresholds:
+    """Alarm/warning thresholds a module declares for one quantity, in reading units.
+
+    Any edge may be None when the module does not declare it.
+    """
+
+    high_alarm: float | None = None
+    low_alarm: float | None = None
+    high_warning: float | None = None
+    low_warning: float | None = None
+
+
+@dataclass(slots=True)
+class OpticIdentity:
+    """What we know about the module plugged into one port."""
+
+    device: str
+    port: str  # interface name as the device reports it (ifName)
+    if_index: int | None = None
+    alias: str = ""  # ifAlias / description: usually the far end or circuit id
+    form_factor: str = ""  # "SFP", "QSFP28", "QSFP-DD", ...
+    pmd: str = ""  # IEEE 802.3 PMD name, e.g. "10GBASE-LR"; "" when unknown
+    pmd_source: str = ""  # where the PMD name came from: "eeprom", "entity", "config", ...
+    wavelength_nm: float | None = None
+    lanes: int = 1
+    part_number: str = ""
+    serial: str = ""
+    rx_power_type: str = "average"  # "average" or "oma" (SFF-8472 A0h byte 92 bit 3)
+    oper_up: bool | None = None  # IF-MIB ifOperStatus == up(1); None when unknown
+    admin_up: bool | None = None
+    #: Module-declared thresholds per quantity (from the memory map or CLI output).
+    thresholds: dict[Quantity, Thresholds] = field(default_factory=dict)
+
+    @property
+    def key(self) -> tuple[str, str]:
+        return (self.device, self.port)
+
+
+@dataclass(slots=True)
+class ReadingBatch:
+    """All readings from one poll of one device, column by column.
+
+    ``optic`` indexes into ``optics``; ``lane`` is 1-based for per-lane quantities and
+    0 for module-wide ones (temperature, supply). ``notes`` maps a row number to a
+    human-readable reason for a non-OK status.
+    """
+
+    device: str
+    taken_at: float  # epoch seconds, passed in by the caller (sources do not read clocks)
+    optics: list[OpticIdentity]
+    optic: np.ndarray  # int32
+    lane: np.ndarray  # int16
+    quantity: np.ndarray  # int8 (Quantity)
+    value: np.ndarray  # float64, NaN unless status == OK
+    status: np.ndarray  # int8 (ReadingStatus)
+    notes: dict[int, str] = field(default_factory=dict)
+
+    def __len__(self) -> int:
+        return int(self.value.shape[0])
+
+    def rows(self):  # pragma: no cover - convenience for humans and tests
+        for i in range(len(self)):
+            yield (
+                self.optics[int(self.optic[i])],
+                int(self.lane[i]),
+                Quantity(int(self.quantity[i])),
+                float(self.value[i]),
+                ReadingStatus(int(self.status[i])),
+                self.notes.get(i, ""),
+            )
+
+
+class BatchBuilder:
+    """Accumulates rows in Python lists and freezes them into a ReadingBatch once."""
+
+    __slots__ = ("_lane", "_notes", "_optic", "_quantity", "_status", "_value", "device", "optics")
+
+    def __init__(self, device: str) -> None:
+        self.device = device
+        self.optics: list[OpticIdentity] = []
+        self._optic: list[int] = []
+        self._lane: list[int] = []
+        self._quantity: list[int] = []
+        self._value: list[float] = []
+        self._status: list[int] = []
+        self._notes: dict[int, str] = {}
+
+    def add_optic(self, optic: OpticIdentity) -> int:
+        self.optics.append(optic)
+        return len(self.optics) - 1
+
+    def add(
+        self,
+        optic: int,
+        lane: int,
+        quantity: Quantity,
+        value: float | None,
+        status: ReadingStatus = ReadingStatus.OK,
+        note: str = "",
+    ) -> None:
+        if status is ReadingStatus.OK and (value is None or not math.isfinite(value)):
+            status = ReadingStatus.INVALID
+            note = note or "value is not a finite number"
+        if note:
+            self._notes[len(self._value)] = note
+        self._optic.append(optic)
+        self._lane.append(lane)
+        self._quantity.append(int(quantity))
+        self._value.append(float(value) if status is ReadingStatus.OK else math.nan)
+        self._status.append(int(status))
+
+    def add_power_mw(self, optic: int, lane: int, quantity: Quantity, milliwatts: float) -> None:
+        """Add an optical power given in mW; zero (or less) becomes NO_LIGHT."""
+        if not math.isfinite(milliwatts):
+            self.add(optic, lane, quantity, None, ReadingStatus.INVALID, "power is not a number")
+        elif milliwatts <= 0.0:
+            self.add(optic, lane, quantity, None, ReadingStatus.NO_LIGHT, "no light (0 mW)")
+        else:
+            self.add(optic, lane, quantity, mw_to_dbm(milliwatts))
+
+    def build(self, taken_at: float) -> ReadingBatch:
+        return ReadingBatch(
+            device=self.device,
+            taken_at=taken_at,
+            optics=self.optics,
+            optic=np.asarray(self._optic, dtype=np.int32),
+            lane=np.asarray(self._lane, dtype=np.int16),
+            quantity=np.asarray(self._quantity, dtype=np.int8),
+            value=np.asarray(self._value, dtype=np.float64),
+            status=np.asarray(self._status, dtype=np.int8),
+            notes=self._notes,
+        )
+
+
+def mw_to_dbm(milliwatts: float) -> float:
+    """10*log10(P/1 mW). Callers handle P <= 0 (no light) before calling."""
+    return 10.0 * math.log10(milliwatts)
+
+
+def dbm_to_mw(dbm: float) -> float:
+    return 10.0 ** (dbm / 10.0)
+
+
+@dataclass(slots=True)
+class PollOutcome:
+    """How one poll of one device went: the batch when it worked, the error when not."""
+
+    device: str
+    started_at: float
+    duration_s: float
+    batch: ReadingBatch | None = None
+    error: str = ""  # short, secret-free, names what failed ("timed out after 3 tries")
+    error_kind: str = ""  # "timeout", "auth", "hostkey", "dropped", "protocol", "parse", ...
+
+    @property
+    def ok(self) -> bool:
+        return self.batch is not None and not self.error

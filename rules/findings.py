@@ -65,6 +65,7 @@ class WindowSource(IntEnum):
     PMD_TABLE = 1  # IEEE 802.3 PMD table shipped with lightwarden
     MODULE = 2  # thresholds the module declares in its memory map / CLI output
     SITE = 3  # the site config (per port or per part number)
+    PRACTICE = 4  # common practice, no single source (commercial 0-70 C, Vcc 3.3 V +-5 %)
 
     @property
     def word(self) -> str:
@@ -76,6 +77,7 @@ _SOURCE_WORDS = {
     WindowSource.PMD_TABLE: "pmd-table",
     WindowSource.MODULE: "module",
     WindowSource.SITE: "site",
+    WindowSource.PRACTICE: "practice",
 }
 
 

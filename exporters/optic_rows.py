@@ -1,0 +1,131 @@
+"""One row per optic and lane, for `lightwarden check`, its JSON and the status page.
+
+Folds the long-form Assessment (one row per quantity) into the wide form people read:
+a lane's Rx/Tx/bias beside its module's temperature and supply, the Rx window edges and
+margins, where the window came from, and the worst condition among them.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
+from lightwarden.rules.findings import Assessment, Condition, WindowSource
+
+
+@dataclass(slots=True)
+class OpticRow:
+    device: str
+    port: str
+    lane: int
+    pmd: str
+    alias: str = ""
+    rx_power_dbm: float | None = None
+    tx_power_dbm: float | None = None
+    bias_ma: float | None = None
+    temperature_c: float | None = None
+    supply_v: float | None = None
+    rx_overload_dbm: float | None = None
+    rx_sensitivity_dbm: float | None = None
+    margin_to_overload_db: float | None = None
+    margin_to_sensitivity_db: float | None = None
+    window_source: str = "none"
+    condition: str = Condition.HEALTHY.word
+    severity: int = 0
+    notes: list[str] = field(default_factory=list)
+
+    def as_json(self) -> dict[str, object]:
+        out = {k: getattr(self, k) for k in self.__slots__ if k != "severity"}  # type: ignore[attr-defined]
+        for k, v in out.items():
+            if isinstance(v, float):
+                out[k] = round(v, 3)
+        return out
+
+    def worst_margin(self, overload_target: float, sensitivity_target: float) -> float:
+        """Smallest margin left over its target (negative: target not met); inf if none."""
+        left = []
+        if self.margin_to_overload_db is not None:
+            left.append(self.margin_to_overload_db - overload_target)
+        if self.margin_to_sensitivity_db is not None:
+            left.append(self.margin_to_sensitivity_db - sensitivity_target)
+        return min(left) if left else math.inf
+
+
+def _num(x: float) -> float | None:
+    return None if math.isnan(x) else float(x)
+
+
+_VALUE_FIELD = {
+    Quantity.RX_POWER: "rx_power_dbm",
+    Quantity.TX_POWER: "tx_power_dbm",
+    Quantity.BIAS: "bias_ma",
+    Quantity.TEMPERATURE: "temperature_c",
+    Quantity.SUPPLY: "supply_v",
+}
+
+_STATUS_WORDS = {
+    ReadingStatus.NO_LIGHT: "no light",
+    ReadingStatus.UNAVAILABLE: "sensor unavailable",
+    ReadingStatus.UNSUPPORTED: "not supported",
+    ReadingStatus.INVALID: "invalid value",
+}
+
+
+def optic_rows(assessment: Assessment) -> list[OpticRow]:
+    batch = assessment.batch
+    rows: dict[tuple[int, int], OpticRow] = {}
+    module: dict[int, list[int]] = {}
+    for i in range(len(batch)):
+        o, lane = int(batch.optic[i]), int(batch.lane[i])
+        if lane == 0:
+            module.setdefault(o, []).append(i)
+            continue
+        row = rows.get((o, lane))
+        if row is None:
+            optic = batch.optics[o]
+            row = rows[(o, lane)] = OpticRow(
+                device=optic.device, port=optic.port, lane=lane, pmd=optic.pmd,
+                alias=optic.alias,
+            )
+        _fold(row, assessment, i)
+    # Optics with module rows but no lane rows still get one line (lane 1).
+    for o in module:
+        if not any(k[0] == o for k in rows):
+            optic = batch.optics[o]
+            rows[(o, 1)] = OpticRow(device=optic.device, port=optic.port, lane=1,
+                                    pmd=optic.pmd, alias=optic.alias)
+    for (o, _lane), row in rows.items():
+        for i in module.get(o, ()):
+            _fold(row, assessment, i)
+    return list(rows.values())
+
+
+def _fold(row: OpticRow, a: Assessment, i: int) -> None:
+    b = a.batch
+    q = Quantity(int(b.quantity[i]))
+    status = ReadingStatus(int(b.status[i]))
+    setattr(row, _VALUE_FIELD[q], _num(float(b.value[i])))
+    cond = Condition(int(a.condition[i]))
+    if cond.severity > row.severity or (
+        cond.severity == row.severity and row.condition == Condition.HEALTHY.word
+    ):
+        row.severity, row.condition = cond.severity, cond.word
+    source = WindowSource(int(a.window_source[i]))
+    if q is Quantity.RX_POWER:
+        row.rx_overload_dbm = _num(float(a.high_edge[i]))
+        row.rx_sensitivity_dbm = _num(float(a.low_edge[i]))
+        row.margin_to_overload_db = _num(float(a.margin_high_db[i]))
+        row.margin_to_sensitivity_db = _num(float(a.margin_low_db[i]))
+        row.window_source = source.word
+    for note in (b.notes.get(i), a.notes.get(i)):
+        if note:
+            text = f"{q.label}: {note}"
+            if text not in row.notes:
+                row.notes.append(text)
+    if status is not ReadingStatus.OK and not b.notes.get(i):
+        row.notes.append(f"{q.label}: {_STATUS_WORDS.get(status, status.name.lower())}")
+
+
+def failed_device_row(outcome: PollOutcome) -> dict[str, object]:
+    return {"device": outcome.device, "error": outcome.error, "error_kind": outcome.error_kind}

@@ -66,6 +66,17 @@ CONTENT_TYPE = "text/plain; version=0.0.4; charset=utf-8"
 ) = range(21)
 
 
+def escape_label_value(value: str) -> str:
+    """Escape a label value for the text format: backslash, double quote, line feed."""
+    if "\\" in value or '"' in value or "\n" in value:
+        value = value.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n")
+    return value
+
+
+def _escape_help(text: str) -> str:
+    return text.replace("\\", "\\\\").replace("\n", "\\n")
+
+
 @dataclass(slots=True, frozen=True)
 class Family:
     name: str  # the exact name on sample lines (counters include _total)
@@ -190,8 +201,9 @@ _VALUE_FAMILY = {
     int(Quantity.TEMPERATURE): F_TEMPERATURE,
     int(Quantity.SUPPLY): F_SUPPLY,
 }
-_SCALE = {int(q): 1.0 for q in Quantity}
-_SCALE[int(Quantity.BIAS)] = 1e-3  # readings carry mA; Prometheus base unit is the ampere
+# Divide (not multiply by 1e-3): 43 / 1000 prints as 0.043, 43 * 1e-3 as 0.043000000000000003.
+_DIVISOR = {int(q): 1.0 for q in Quantity}
+_DIVISOR[int(Quantity.BIAS)] = 1000.0  # readings carry mA; Prometheus base unit is the ampere
 _LANE_LABELLED = {
     int(q): q in (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS) for q in Quantity
 }
@@ -205,17 +217,6 @@ _RX = int(Quantity.RX_POWER)
 _OK = int(ReadingStatus.OK)
 _NO_LIGHT = int(ReadingStatus.NO_LIGHT)
 _SOURCE_NONE = int(WindowSource.NONE)
-
-
-def escape_label_value(value: str) -> str:
-    """Escape a label value for the text format: backslash, double quote, line feed."""
-    if "\\" in value or '"' in value or "\n" in value:
-        value = value.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n")
-    return value
-
-
-def _escape_help(text: str) -> str:
-    return text.replace("\\", "\\\\").replace("\n", "\\n")
 
 
 def format_value(value: float) -> str:
@@ -359,7 +360,7 @@ def render_device(
                     f'{value_names[q]}{{{lbl},pmd="{optic_pmd[o]}"}} {v!r}\n'
                 )
             else:
-                o_val[_VALUE_FAMILY[q]].append(f"{value_names[q]}{{{lbl}}} {v * _SCALE[q]!r}\n")
+                o_val[_VALUE_FAMILY[q]].append(f"{value_names[q]}{{{lbl}}} {v / _DIVISOR[q]!r}\n")
             th = optic_th[o].get(q)
             if th is not None:
                 # "At or past" matches the rule layer's reading of an edge.

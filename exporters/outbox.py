@@ -136,7 +136,7 @@ class Outbox:
             # volume is tiny, so the extra fsync costs nothing that matters.
             self._db.execute("PRAGMA synchronous=FULL")
             self._db.executescript(_SCHEMA)
-        except sqlite3.Error as exc:
+        except (sqlite3.Error, OSError) as exc:
             raise OutboxError(f"cannot open alert outbox {self.path}: {exc}") from None
 
     # -- lifecycle -------------------------------------------------------------------

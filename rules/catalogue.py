@@ -203,12 +203,16 @@ def parse_catalogue(text: str, origin: str = CATALOGUE_FILE) -> list[PmdSpec]:
                 f"{where('name')}: {name!r} already defined in row {seen[_key(name)]}"
             )
         seen[_key(name)] = rownum
-        values: dict[str, object] = {c: _parse_float(row.get(c, ""), where(c)) for c in _FLOAT_COLUMNS}
+        values: dict[str, object] = {
+            c: _parse_float(row.get(c, ""), where(c)) for c in _FLOAT_COLUMNS
+        }
         lanes_text = row.get("lanes", "") or "1"
         try:
             lanes = int(lanes_text)
         except ValueError:
-            raise CatalogueError(f"{where('lanes')}: {lanes_text!r} is not a whole number") from None
+            raise CatalogueError(
+                f"{where('lanes')}: {lanes_text!r} is not a whole number"
+            ) from None
         if not 1 <= lanes <= 16:
             raise CatalogueError(f"{where('lanes')}: {lanes} lanes is outside 1..16")
         for column in ("rx_overload_dbm", "rx_min_avg_dbm"):

@@ -1,0 +1,430 @@
+"""Which window each reading is judged against, and who declared each of its edges.
+
+Precedence (per quantity, per lane, and **per edge**: each of low edge, high edge, low
+warning and high warning is taken from the first source below that declares it):
+
+1. **site**: a :class:`WindowOverride` from the site config. Among overrides that
+   match an optic, a port-level one (``port`` given) beats a part-number one, which
+   beats a device-wide one, which beats a site-wide one; a lane-specific one beats a
+   lane-less one of the same scope; among equals the later one wins.
+2. **module**: the thresholds the module declares for that quantity (SFF-8472 A2h,
+   SFF-8636 page 03h, CMIS page 02h, or CLI output). A block whose low alarm is not
+   below its high alarm (blank EEPROM areas read as all zeros) is ignored, with a note.
+3. **pmd-table**: the IEEE 802.3 row for the optic's PMD. Rx power: sensitivity edge =
+   minimum average receive power, overload edge = maximum average receive power.
+   Tx power: launch power minimum/maximum. Only alarm-level edges come from here.
+4. **practice**: only when nothing above declares any edge of the quantity:
+   temperature 0..70 C (commercial case range) and supply 3.3 V +-5 % as *warning*
+   edges, so practice alone never raises more than a warning.
+
+Why the module before the PMD table, even though vendors often choose looser Rx alarms:
+
+- module thresholds are stated in the same terms as the readings (average power or
+  OMA, the same lane numbering, the same calibration), the PMD table only in average
+  power;
+- they describe the part actually fitted, while the PMD row is the least a compliant
+  part may do; a better-than-spec receiver judged by the PMD row would be called
+  "below sensitivity" (critical) on a link that runs clean;
+- what a margin target is for is exactly the gap the vendor leaves: we keep 3 dB from
+  the sensitivity edge whichever source gave it. Where the module's Rx alarm is looser
+  than the PMD row, the window carries a note saying by how much, so an operator who
+  wants the standard's edge can set a site override.
+
+Per edge rather than per window, because partial declarations are common: a site may
+know only the overload of a short-reach link, a module may declare only alarms. The
+alternative, taking the whole window from the first source that declares anything,
+would leave those windows half empty. Mixed windows carry a note naming each edge's
+source; :attr:`Window.source` (what lands in ``Assessment.window_source``) is the
+most authoritative source contributing any edge.
+
+OMA: when the module reports Rx power as OMA, the PMD table (average power) is never
+used for Rx; only the module's own thresholds (declared in the same terms) and site
+overrides apply, and an Rx window without edges says why.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+
+from lightwarden.collector.readings import OpticIdentity, Quantity, Thresholds
+from lightwarden.rules.catalogue import Catalogue, PmdSpec
+from lightwarden.rules.findings import WindowSource
+
+NAN = math.nan
+
+#: Higher wins. PRACTICE's enum code (4) is not its rank.
+PRECEDENCE = {
+    WindowSource.NONE: 0,
+    WindowSource.PRACTICE: 1,
+    WindowSource.PMD_TABLE: 2,
+    WindowSource.MODULE: 3,
+    WindowSource.SITE: 4,
+}
+
+#: Common practice (standards.md "Rules of thumb"): commercial case temperature and Vcc.
+PRACTICE_TEMPERATURE_C = (0.0, 70.0)
+PRACTICE_SUPPLY_V = (3.3 * 0.95, 3.3 * 1.05)
+
+EDGE_NAMES = ("low_edge", "high_edge", "low_warning", "high_warning")
+OMA_NOTE = "Rx power reported as OMA; PMD table edges are average power, not compared"
+
+
+def _edge_words(quantity: Quantity) -> tuple[str, str, str, str]:
+    if quantity is Quantity.RX_POWER:
+        return ("sensitivity", "overload", "low warning", "high warning")
+    return ("low alarm", "high alarm", "low warning", "high warning")
+
+
+@dataclass(slots=True, frozen=True, kw_only=True)
+class WindowOverride:
+    """A site's own edges for one quantity, scoped to a port, a part number or both.
+
+    For Rx power, ``rx_sensitivity``/``rx_overload`` set the low/high edges (falling
+    back to ``low_alarm``/``high_alarm`` when not given); other quantities use the
+    alarm fields and must leave the ``rx_`` fields empty.
+    """
+
+    quantity: Quantity
+    device: str | None = None
+    port: str | None = None
+    part_number: str | None = None
+    lane: int | None = None
+    low_alarm: float | None = None
+    low_warning: float | None = None
+    high_warning: float | None = None
+    high_alarm: float | None = None
+    rx_overload: float | None = None
+    rx_sensitivity: float | None = None
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "quantity", Quantity(self.quantity))
+        if self.quantity is not Quantity.RX_POWER and (
+            self.rx_overload is not None or self.rx_sensitivity is not None
+        ):
+            raise ValueError(
+                f"{self.describe()}: rx_overload/rx_sensitivity apply only to rx_power"
+            )
+        for name in ("low_alarm", "low_warning", "high_warning", "high_alarm",
+                     "rx_overload", "rx_sensitivity"):
+            value = getattr(self, name)
+            if value is not None and not math.isfinite(value):
+                raise ValueError(f"{self.describe()}: {name} is not a finite number")
+        low, high = self.edges()[:2]
+        if low is not None and high is not None and low >= high:
+            raise ValueError(f"{self.describe()}: low edge {low} is not below high edge {high}")
+        if self.lane is not None and self.lane < 0:
+            raise ValueError(f"{self.describe()}: lane must be 0 or more")
+
+    def describe(self) -> str:
+        scope = [f"{k}={v}" for k in ("device", "port", "part_number", "lane")
+                 if (v := getattr(self, k)) is not None]
+        return f"override for {self.quantity.label} ({', '.join(scope) or 'whole site'})"
+
+    def edges(self) -> tuple[float | None, float | None, float | None, float | None]:
+        """(low edge, high edge, low warning, high warning) in reading units."""
+        low, high = self.low_alarm, self.high_alarm
+        if self.quantity is Quantity.RX_POWER:
+            low = self.rx_sensitivity if self.rx_sensitivity is not None else low
+            high = self.rx_overload if self.rx_overload is not None else high
+        return (low, high, self.low_warning, self.high_warning)
+
+    @property
+    def specificity(self) -> tuple[bool, bool, bool, bool]:
+        return (self.port is not None, self.part_number is not None,
+                self.device is not None, self.lane is not None)
+
+
+@dataclass(slots=True, frozen=True)
+class Window:
+    """Resolved edges for one (optic, lane, quantity); NaN where no edge is known."""
+
+    low_edge: float = NAN
+    high_edge: float = NAN
+    low_warning: float = NAN
+    high_warning: float = NAN
+    sources: tuple[WindowSource, WindowSource, WindowSource, WindowSource] = (
+        WindowSource.NONE, WindowSource.NONE, WindowSource.NONE, WindowSource.NONE)
+    note: str = ""
+
+    @property
+    def source(self) -> WindowSource:
+        """The most authoritative source contributing any edge (NONE if none)."""
+        return max(self.sources, key=PRECEDENCE.__getitem__)
+
+    def edge_source(self, edge: str) -> WindowSource:
+        """Source of one edge by name: "low_edge", "high_edge", "low_warning", ..."""
+        return self.sources[EDGE_NAMES.index(edge)]
+
+    @property
+    def edges(self) -> tuple[float, float, float, float]:
+        return (self.low_edge, self.high_edge, self.low_warning, self.high_warning)
+
+
+EMPTY_WINDOW = Window()
+
+
+@dataclass(slots=True, frozen=True)
+class OpticWindows:
+    """Every window of one optic: one per quantity, plus lane-specific exceptions."""
+
+    pmd: PmdSpec | None
+    by_quantity: tuple[Window, ...]  # indexed by Quantity code
+    by_lane: Mapping[tuple[Quantity, int], Window] = field(default_factory=dict)
+
+    def window(self, quantity: Quantity, lane: int = 0) -> Window:
+        if self.by_lane:
+            found = self.by_lane.get((quantity, lane))
+            if found is not None:
+                return found
+        return self.by_quantity[quantity]
+
+
+class OverrideIndex:
+    """Site overrides indexed so one optic's matches cost a few dict lookups."""
+
+    __slots__ = ("_by_device", "_by_part", "_by_port", "_site", "overrides")
+
+    def __init__(self, overrides: Iterable[WindowOverride] = ()) -> None:
+        self.overrides: tuple[WindowOverride, ...] = tuple(overrides)
+        self._by_port: dict[str, list[int]] = {}
+        self._by_part: dict[str, list[int]] = {}
+        self._by_device: dict[str, list[int]] = {}
+        self._site: list[int] = []
+        for i, o in enumerate(self.overrides):
+            if o.port is not None:
+                self._by_port.setdefault(o.port.casefold(), []).append(i)
+            elif o.part_number is not None:
+                self._by_part.setdefault(o.part_number.strip().casefold(), []).append(i)
+            elif o.device is not None:
+                self._by_device.setdefault(o.device.casefold(), []).append(i)
+            else:
+                self._site.append(i)
+
+    def __len__(self) -> int:
+        return len(self.overrides)
+
+    def matching(self, optic: OpticIdentity) -> tuple[int, ...]:
+        """Indices of the overrides that apply to this optic, least specific first."""
+        if not self.overrides:
+            return ()
+        device = optic.device.casefold()
+        part = optic.part_number.strip().casefold()
+        candidates = [
+            *self._by_port.get(optic.port.casefold(), ()),
+            *(self._by_part.get(part, ()) if part else ()),
+            *self._by_device.get(device, ()),
+            *self._site,
+        ]
+        found = []
+        for i in candidates:
+            o = self.overrides[i]
+            if o.device is not None and o.device.casefold() != device:
+                continue
+            if o.part_number is not None and o.part_number.strip().casefold() != part:
+                continue
+            found.append(i)
+        found.sort(key=lambda i: (self.overrides[i].specificity, i))
+        return tuple(found)
+
+
+def _clean(value: float | None) -> float | None:
+    return value if value is not None and math.isfinite(value) else None
+
+
+def _module_edges(
+    quantity: Quantity, t: Thresholds | None
+) -> tuple[tuple[float | None, ...], str]:
+    if t is None:
+        return (None, None, None, None), ""
+    edges = (_clean(t.low_alarm), _clean(t.high_alarm), _clean(t.low_warning),
+             _clean(t.high_warning))
+    low, high = edges[0], edges[1]
+    if low is not None and high is not None and low >= high:
+        return (None, None, None, None), (
+            f"module {quantity.label} thresholds ignored: low alarm {low:g} "
+            f"is not below high alarm {high:g}"
+        )
+    return edges, ""
+
+
+def _pmd_edges(quantity: Quantity, pmd: PmdSpec | None) -> tuple[float | None, ...]:
+    if pmd is None:
+        return (None, None, None, None)
+    if quantity is Quantity.RX_POWER:
+        return (pmd.rx_min_avg_dbm, pmd.rx_overload_dbm, None, None)
+    if quantity is Quantity.TX_POWER:
+        return (pmd.tx_min_dbm, pmd.tx_max_dbm, None, None)
+    return (None, None, None, None)
+
+
+def _practice_edges(quantity: Quantity) -> tuple[float | None, ...]:
+    if quantity is Quantity.TEMPERATURE:
+        return (None, None, *PRACTICE_TEMPERATURE_C)
+    if quantity is Quantity.SUPPLY:
+        return (None, None, *PRACTICE_SUPPLY_V)
+    return (None, None, None, None)
+
+
+def _merge(
+    quantity: Quantity,
+    site: Sequence[WindowOverride],
+    module: tuple[float | None, ...],
+    pmd_edges: tuple[float | None, ...],
+    notes: list[str],
+) -> Window:
+    values: list[float | None] = [None, None, None, None]
+    sources = [WindowSource.NONE] * 4
+    for k in range(4):
+        # ``site`` is least specific first: the last override declaring the edge wins.
+        for o in reversed(site):
+            v = o.edges()[k]
+            if v is not None:
+                values[k], sources[k] = v, WindowSource.SITE
+                break
+        else:
+            if module[k] is not None:
+                values[k], sources[k] = module[k], WindowSource.MODULE
+            elif pmd_edges[k] is not None:
+                values[k], sources[k] = pmd_edges[k], WindowSource.PMD_TABLE
+    if all(s is WindowSource.NONE for s in sources):
+        practice = _practice_edges(quantity)
+        if any(v is not None for v in practice):
+            values = list(practice)
+            sources = [WindowSource.PRACTICE if v is not None else WindowSource.NONE
+                       for v in practice]
+            what = ("commercial case temperature 0-70 C" if quantity is Quantity.TEMPERATURE
+                    else "supply 3.3 V +-5 %")
+            notes.append(f"no thresholds declared; warning edges from common practice ({what})")
+
+    words = _edge_words(quantity)
+    low, high = values[0], values[1]
+    if low is not None and high is not None and low >= high:
+        # Edges from different sources crossed: keep the more authoritative one.
+        drop = 0 if PRECEDENCE[sources[0]] < PRECEDENCE[sources[1]] else 1
+        notes.append(
+            f"{words[drop]} {values[drop]:g} ({sources[drop].word}) dropped: it is not on "
+            f"the right side of {words[1 - drop]} {values[1 - drop]:g} ({sources[1 - drop].word})"
+        )
+        values[drop], sources[drop] = None, WindowSource.NONE
+
+    used = {s for s in sources[:2] if s is not WindowSource.NONE}
+    if len(used) > 1:
+        notes.append(", ".join(f"{words[k]} from {sources[k].word}" for k in (0, 1)))
+    return Window(
+        *(NAN if v is None else float(v) for v in values),
+        sources=tuple(sources),  # type: ignore[arg-type]
+        note="; ".join(notes),
+    )
+
+
+def _resolve_quantity(
+    quantity: Quantity,
+    optic: OpticIdentity,
+    pmd: PmdSpec | None,
+    site: Sequence[WindowOverride],
+) -> Window:
+    notes: list[str] = []
+    module, module_note = _module_edges(quantity, optic.thresholds.get(quantity))
+    if module_note:
+        notes.append(module_note)
+    pmd_edges = _pmd_edges(quantity, pmd)
+    oma = optic.rx_power_type.strip().lower() == "oma"
+    if quantity is Quantity.RX_POWER and oma:
+        if any(v is not None for v in pmd_edges):
+            declared = [o.edges()[:2] for o in site] + [module[:2]]
+            if not all(any(e[k] is not None for e in declared) for k in (0, 1)):
+                notes.append(OMA_NOTE)
+        pmd_edges = (None, None, None, None)
+    if quantity is Quantity.RX_POWER and pmd is not None and not oma:
+        _note_looser_module(module, pmd, notes)
+    if optic.pmd and pmd is None and quantity in (Quantity.RX_POWER, Quantity.TX_POWER):
+        notes.append(f"PMD {optic.pmd!r} is not in the PMD table")
+    return _merge(quantity, site, module, pmd_edges, notes)
+
+
+def _note_looser_module(module: tuple[float | None, ...], pmd: PmdSpec, notes: list[str]) -> None:
+    low, high = module[0], module[1]
+    if low is not None and pmd.rx_min_avg_dbm is not None and low < pmd.rx_min_avg_dbm - 0.05:
+        notes.append(
+            f"module Rx low alarm {low:g} dBm is {pmd.rx_min_avg_dbm - low:.1f} dB below the "
+            f"{pmd.name} minimum average receive power {pmd.rx_min_avg_dbm:g} dBm"
+        )
+    if high is not None and pmd.rx_overload_dbm is not None and high > pmd.rx_overload_dbm + 0.05:
+        notes.append(
+            f"module Rx high alarm {high:g} dBm is {high - pmd.rx_overload_dbm:.1f} dB above the "
+            f"{pmd.name} overload {pmd.rx_overload_dbm:g} dBm"
+        )
+
+
+def _resolve(
+    optic: OpticIdentity, catalogue: Catalogue, matched: Sequence[WindowOverride]
+) -> OpticWindows:
+    pmd = catalogue.lookup(optic.pmd) if optic.pmd else None
+    by_quantity = []
+    lane_specific: dict[Quantity, set[int]] = {}
+    for o in matched:
+        if o.lane is not None:
+            lane_specific.setdefault(o.quantity, set()).add(o.lane)
+    for q in Quantity:
+        site = [o for o in matched if o.quantity is q and o.lane is None]
+        by_quantity.append(_resolve_quantity(q, optic, pmd, site))
+    by_lane = {}
+    for q, lanes in lane_specific.items():
+        for lane in sorted(lanes):
+            site = [o for o in matched if o.quantity is q and o.lane in (None, lane)]
+            by_lane[(q, lane)] = _resolve_quantity(q, optic, pmd, site)
+    return OpticWindows(pmd=pmd, by_quantity=tuple(by_quantity), by_lane=by_lane)
+
+
+def resolve_windows(
+    optic: OpticIdentity,
+    catalogue: Catalogue,
+    overrides: Iterable[WindowOverride] | OverrideIndex = (),
+) -> OpticWindows:
+    """All windows of one optic, with the source of every edge."""
+    index = overrides if isinstance(overrides, OverrideIndex) else OverrideIndex(overrides)
+    return _resolve(optic, catalogue, [index.overrides[i] for i in index.matching(optic)])
+
+
+class WindowResolver:
+    """Resolves windows for many optics, once per distinct (PMD, Rx power type, module
+    thresholds, matching overrides); a fleet has few distinct ones.
+
+    Keep one per (catalogue, overrides) pair and reuse it across polls; build a new
+    one when the config changes.
+    """
+
+    __slots__ = ("_cache", "catalogue", "index", "max_entries")
+
+    def __init__(
+        self,
+        catalogue: Catalogue,
+        overrides: Iterable[WindowOverride] = (),
+        max_entries: int = 65536,
+    ) -> None:
+        self.catalogue = catalogue
+        self.index = overrides if isinstance(overrides, OverrideIndex) else OverrideIndex(overrides)
+        self.max_entries = max_entries
+        self._cache: dict[tuple, OpticWindows] = {}
+
+    def __call__(self, optic: OpticIdentity) -> OpticWindows:
+        matched = self.index.matching(optic)
+        key = (
+            optic.pmd,
+            optic.rx_power_type,
+            tuple(sorted((int(q), t) for q, t in optic.thresholds.items())),
+            matched,
+        )
+        try:
+            found = self._cache.get(key)
+        except TypeError:  # unhashable threshold values: resolve without caching
+            found, key = None, None
+        if found is None:
+            found = _resolve(optic, self.catalogue, [self.index.overrides[i] for i in matched])
+            if key is not None:
+                if len(self._cache) >= self.max_entries:
+                    self._cache.clear()
+                self._cache[key] = found
+        return found

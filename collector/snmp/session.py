@@ -1,0 +1,241 @@
+"""Talking to one SNMP agent: engines per credential set, GETs and multi-column GETBULK walks.
+
+Values come back as plain Python: integers as int, octet strings as str, OIDs as dotted
+str, and "no such object/instance" as None. Failures raise :class:`SnmpError` whose
+message names the agent and what was being read, and never a secret.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+from lightwarden.collector.snmp.credentials import SnmpCredentials
+from pyasn1.type import univ
+from pysnmp.hlapi.v3arch.asyncio import (
+    ContextData,
+    ObjectIdentity,
+    ObjectType,
+    SnmpEngine,
+    UdpTransportTarget,
+    bulk_cmd,
+    get_cmd,
+)
+from pysnmp.proto import errind
+from pysnmp.proto.rfc1905 import EndOfMibView
+
+Oid = tuple[int, ...]
+
+# USM reports and local security failures: the agent rejected who we are, or how.
+_AUTH_ERRORS = (
+    errind.UnknownUserName,
+    errind.WrongDigest,
+    errind.AuthenticationError,
+    errind.AuthenticationFailure,
+    errind.UnknownSecurityName,
+    errind.UnsupportedSecurityLevel,
+    errind.UnsupportedAuthProtocol,
+    errind.UnsupportedPrivProtocol,
+    errind.DecryptionError,
+    errind.EncryptionError,
+    errind.NoEncryption,
+    errind.NoAuthentication,
+    errind.NotInTimeWindow,
+)
+
+#: Hard ceiling on GETBULK round trips per walk, so a misbehaving agent cannot loop us.
+MAX_WALK_REQUESTS = 10_000
+
+
+class SnmpError(Exception):
+    """A failed SNMP exchange. ``kind`` is "timeout", "auth", "protocol" or "transport"."""
+
+    def __init__(self, kind: str, message: str) -> None:
+        super().__init__(message)
+        self.kind = kind
+        self.message = message
+
+
+def parse_oid(text: str) -> Oid:
+    return tuple(int(part) for part in text.strip(".").split("."))
+
+
+def plain(value: object) -> object:
+    """A pyasn1/pysnmp value as plain Python; None for noSuchObject/Instance/endOfMibView."""
+    if isinstance(value, univ.Null):
+        return None
+    if isinstance(value, univ.Integer):
+        return int(value)
+    if isinstance(value, univ.OctetString):
+        return bytes(value).decode("utf-8", "replace")
+    if isinstance(value, univ.ObjectIdentifier):
+        return ".".join(str(part) for part in value)
+    return value
+
+
+class EnginePool:
+    """pysnmp engines shared between devices: one for all v2c, one per v3 credential set.
+
+    Engines are tied to the event loop they first run on; make one pool per loop and
+    close it when done.
+    """
+
+    def __init__(self) -> None:
+        self._engines: dict[str, SnmpEngine] = {}
+
+    def engine_for(self, credentials: SnmpCredentials) -> SnmpEngine:
+        key = credentials.engine_key
+        engine = self._engines.get(key)
+        if engine is None:
+            engine = self._engines[key] = SnmpEngine()
+        return engine
+
+    def __len__(self) -> int:
+        return len(self._engines)
+
+    def close(self) -> None:
+        for engine in self._engines.values():
+            engine.close_dispatcher()
+        self._engines.clear()
+
+
+class SnmpSession:
+    """One agent reached with one set of credentials."""
+
+    def __init__(
+        self,
+        engine: SnmpEngine,
+        credentials: SnmpCredentials,
+        host: str,
+        port: int = 161,
+        *,
+        timeout: float = 2.0,
+        retries: int = 1,
+        max_repetitions: int = 25,
+    ) -> None:
+        self.engine = engine
+        self.credentials = credentials
+        self.host = host
+        self.port = port
+        self.timeout = timeout
+        self.retries = retries
+        self.max_repetitions = max_repetitions
+        self._auth = credentials.auth_data()
+        self._context = ContextData()
+        self._target: UdpTransportTarget | None = None
+
+    @property
+    def where(self) -> str:
+        return f"{self.host}:{self.port}"
+
+    async def _get_target(self, what: str) -> UdpTransportTarget:
+        if self._target is None:
+            try:
+                self._target = await UdpTransportTarget.create(
+                    (self.host, self.port), timeout=self.timeout, retries=self.retries
+                )
+            except Exception as exc:  # resolution or socket errors, named below
+                raise SnmpError(
+                    "transport",
+                    f"cannot reach {self.where} for {what}: {type(exc).__name__}",
+                ) from None
+        return self._target
+
+    def _fail(self, indication: errind.ErrorIndication, what: str) -> SnmpError:
+        if isinstance(indication, errind.RequestTimedOut):
+            hint = " (a wrong community is dropped silently and looks the same)"
+            return SnmpError(
+                "timeout",
+                f"no answer from {self.where} while reading {what}: "
+                f"{self.retries + 1} tries of {self.timeout:g} s"
+                + (hint if self.credentials.version == "2c" else ""),
+            )
+        if isinstance(indication, _AUTH_ERRORS):
+            return SnmpError(
+                "auth",
+                f"SNMPv3 security failure from {self.where} while reading {what} "
+                f"as {self.credentials.describe()}: {indication}",
+            )
+        return SnmpError(
+            "protocol", f"SNMP error from {self.where} while reading {what}: {indication}"
+        )
+
+    async def get(self, oids: Sequence[str], what: str) -> dict[str, object]:
+        """GET the given instances; absent ones map to None."""
+        target = await self._get_target(what)
+        indication, status, index, varbinds = await get_cmd(
+            self.engine,
+            self._auth,
+            target,
+            self._context,
+            *(ObjectType(ObjectIdentity(oid)) for oid in oids),
+            lookupMib=False,
+        )
+        if indication:
+            raise self._fail(indication, what)
+        if status:
+            raise SnmpError(
+                "protocol",
+                f"{self.where} answered {status.prettyPrint()} at varbind {int(index)} "
+                f"while reading {what}",
+            )
+        result: dict[str, object] = {oid: None for oid in oids}
+        for requested, (_, value) in zip(oids, varbinds, strict=False):
+            result[requested] = plain(value)
+        return result
+
+    async def walk_columns(
+        self, columns: Sequence[str], what: str
+    ) -> dict[str, dict[Oid, object]]:
+        """Walk several table columns together with GETBULK.
+
+        Returns ``{column: {index suffix: value}}``. Columns may have holes or different
+        lengths; rows are matched by index, never by position. A column stops at the
+        first OID outside it (lexicographic walking off the end is not done).
+        """
+        target = await self._get_target(what)
+        prefixes = {col: parse_oid(col) for col in columns}
+        last: dict[str, Oid] = dict(prefixes)
+        results: dict[str, dict[Oid, object]] = {col: {} for col in columns}
+        active = list(columns)
+        for _ in range(MAX_WALK_REQUESTS):
+            if not active:
+                return results
+            indication, status, _, varbinds = await bulk_cmd(
+                self.engine,
+                self._auth,
+                target,
+                self._context,
+                0,
+                self.max_repetitions,
+                *(ObjectType(ObjectIdentity(".".join(map(str, last[c])))) for c in active),
+                lookupMib=False,
+            )
+            if indication:
+                raise self._fail(indication, what)
+            if status:
+                raise SnmpError(
+                    "protocol",
+                    f"{self.where} answered {status.prettyPrint()} while reading {what}",
+                )
+            if not varbinds:
+                return results
+            finished: set[str] = set()
+            width = len(active)
+            for position, (name, value) in enumerate(varbinds):
+                col = active[position % width]
+                if col in finished:
+                    continue
+                oid = tuple(name)
+                prefix = prefixes[col]
+                if isinstance(value, EndOfMibView) or oid[: len(prefix)] != prefix:
+                    finished.add(col)
+                    continue
+                if oid <= last[col]:
+                    raise SnmpError(
+                        "protocol",
+                        f"{self.where} returned OIDs out of order while reading {what}",
+                    )
+                last[col] = oid
+                results[col][oid[len(prefix):]] = plain(value)
+            active = [col for col in active if col not in finished]
+        raise SnmpError("protocol", f"{self.where}: walk of {what} did not end")

@@ -1,0 +1,302 @@
+"""The words an operator acts on: what is wrong with a reading, and what to do about it.
+
+Texts are short and plain: they go into alert annotations, CLI output and status pages.
+Any advice that means handling fibre or optics comes with ``LASER_CAUTION``
+(standards.md "Laser safety").
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from lightwarden.collector.readings import Quantity
+from lightwarden.rules.assess import MarginTargets
+from lightwarden.rules.findings import Condition
+from lightwarden.rules.trend import WearVerdict
+
+LASER_CAUTION = (
+    "Laser safety: never look into a fibre end or an open port, even when the link is down; "
+    "infrared light is invisible. Inspect with a video scope. Disable the transmitter or cap "
+    "the port before handling. Follow local codes and the site's laser-safety procedures."
+)
+
+#: Fixed attenuator values commonly stocked (standards.md "Rules of thumb", practice).
+STOCKED_PADS_DB: tuple[float, ...] = (1.0, 3.0, 5.0, 7.0, 10.0, 15.0, 20.0)
+
+
+#: The same margin targets the conditions are judged with, so a pad chosen here never
+#: lands a receiver back in NEAR_OVERLOAD / NEAR_SENSITIVITY.
+DEFAULT_TARGETS = MarginTargets()
+
+
+@dataclass(slots=True, frozen=True)
+class PadAdvice:
+    pad_db: float | None  # None when a pad is the wrong tool (Rx already low)
+    expected_rx_dbm: float | None
+    fits: bool  # True when the result keeps both margin targets
+    reason: str
+
+
+def pad_advice(
+    rx_dbm: float,
+    overload_dbm: float,
+    sensitivity_dbm: float,
+    targets: MarginTargets = DEFAULT_TARGETS,
+    *,
+    steps: tuple[float, ...] = STOCKED_PADS_DB,
+    require_pad: bool = False,
+) -> PadAdvice:
+    """Choose one stocked fixed attenuator for a receiver that gets too much light.
+
+    Among the steps that land Rx inside [sensitivity + target, overload - target], take
+    the one closest to the middle of the window (the smaller one on a tie, leaving more
+    room for the link to age). A pad lowers the received level by its value in dB
+    (standards.md dB arithmetic, practice). ``require_pad`` asks for a pad even when Rx
+    already keeps the targets, for a receiver another rule judged too close to overload.
+    An unknown sensitivity (NaN) leaves only the overload side to keep.
+    """
+    if not math.isfinite(rx_dbm) or not math.isfinite(overload_dbm):
+        return PadAdvice(None, None, False, "no Rx value or no overload edge to work from")
+    if not steps:
+        raise ValueError("pad advice: no stocked attenuator steps given")
+    has_low = math.isfinite(sensitivity_dbm)
+    hi = overload_dbm - targets.overload_db
+    lo = sensitivity_dbm + targets.sensitivity_db if has_low else -math.inf
+    middle = (overload_dbm + sensitivity_dbm) / 2.0 if has_low else hi
+    if rx_dbm <= hi and not require_pad:
+        if rx_dbm < lo:
+            return PadAdvice(None, None, False, "Rx is already low: a pad would make it worse")
+        return PadAdvice(0.0, rx_dbm, True, "Rx keeps its margins: no pad needed")
+    if has_low and rx_dbm <= lo:
+        return PadAdvice(None, None, False, "Rx is already low: a pad would make it worse")
+    fitting = [s for s in steps if s > 0 and lo <= rx_dbm - s <= hi]
+    if fitting:
+        pad = min(fitting, key=lambda s: (abs(rx_dbm - s - middle), s))
+        return PadAdvice(pad, rx_dbm - pad, True, "brings Rx near the middle of its window")
+    largest = max(steps)
+    if rx_dbm - largest > hi:
+        return PadAdvice(
+            largest,
+            rx_dbm - largest,
+            False,
+            f"even a {largest:g} dB pad leaves Rx above the overload target; "
+            "check the transmitter type and the plant record",
+        )
+    # Every step overshoots below the sensitivity target: the window is too narrow for
+    # both targets. Offer the smallest step that at least clears overload.
+    clearing = [s for s in steps if s > 0 and rx_dbm - s < overload_dbm]
+    pad = min(clearing) if clearing else largest
+    return PadAdvice(
+        pad,
+        rx_dbm - pad,
+        False,
+        "no stocked pad keeps both margin targets; the window is too narrow",
+    )
+
+
+@dataclass(slots=True, frozen=True)
+class AdviceContext:
+    """Facts from outside one reading that change the advice (history, plant)."""
+
+    span_growth_db: float | None = None  # span loss now minus its baseline
+    wear: WearVerdict | None = None  # the transmitter feeding this reading
+    wear_end: str = "far"  # "near" or "far": where that transmitter sits
+    rate_per_day: float | None = None
+
+
+#: How much span loss growth is worth mentioning (dB); same modules, so offsets cancel.
+SPAN_GROWTH_NOTE_DB = 1.0
+
+
+@dataclass(slots=True, frozen=True)
+class Advice:
+    text: str
+    caution: str  # LASER_CAUTION when the advice means handling fibre or optics, else ""
+
+
+_CLEAN = (
+    "Inspect and clean both connectors with a fibre scope, starting at the far end; "
+    "check patch cords and look for tight bends; compare span loss with the loss budget."
+)
+_DARK = "Check the far-end transmitter, the patching, and whether the far-end port is admin down."
+_AIRFLOW = "Check airflow and fans: blocked vents, failed fans, hot aisle temperature."
+_POWER = "Check the platform power: supplies and voltage rails of the device."
+
+
+def _fmt(x: float) -> str:
+    return f"{x:+.1f}" if x != 0 else "0.0"
+
+
+def _wear_sentence(ctx: AdviceContext | None) -> str:
+    if ctx is None or ctx.wear is None or not ctx.wear.worn:
+        return ""
+    end = "far" if ctx.wear_end != "near" else "near"
+    return f" The {end}-end {ctx.wear.reason}: schedule replacement of the optic at the {end} end."
+
+
+def advise(
+    condition: Condition,
+    quantity: Quantity,
+    value: float,
+    *,
+    low_edge: float = math.nan,
+    high_edge: float = math.nan,
+    context: AdviceContext | None = None,
+    targets: MarginTargets = DEFAULT_TARGETS,
+) -> Advice:
+    """Concrete advice for one reading's condition. Empty text when there is nothing to do.
+
+    For Rx power ``low_edge`` is the sensitivity and ``high_edge`` the overload (as in
+    ``Assessment``); for other quantities they are the alarm thresholds.
+    """
+    condition = Condition(condition)
+    if condition in (Condition.HEALTHY, Condition.UNKNOWN):
+        return Advice("", "")
+    if condition is Condition.DARK:
+        return Advice(_DARK + _wear_sentence(context), LASER_CAUTION)
+    if quantity is Quantity.RX_POWER:
+        return _rx_advice(condition, value, low_edge, high_edge, context, targets)
+    if quantity is Quantity.TEMPERATURE:
+        return Advice(_AIRFLOW, "")
+    if quantity is Quantity.SUPPLY:
+        return Advice(_POWER, "")
+    # Tx power or bias outside the module's thresholds: the transmitter here is the suspect.
+    what = "Tx power" if quantity is Quantity.TX_POWER else "laser bias"
+    wear = context.wear if context is not None and context.wear is not None else None
+    why = f" ({wear.reason})" if wear is not None and wear.worn else ""
+    return Advice(
+        f"{what} is outside the module's thresholds{why}: "
+        "schedule replacement of the optic at the near end.",
+        LASER_CAUTION,
+    )
+
+
+def rx_high_side(condition: Condition, value: float, low_edge: float, high_edge: float) -> bool:
+    """Is an Rx condition about the overload side (True) or the sensitivity side?
+
+    Threshold conditions (WARNING/ALARM) on Rx carry no side of their own: take the half
+    of the window the value sits in; with only one edge known, that edge's side.
+    """
+    if condition in (Condition.NEAR_OVERLOAD, Condition.OVERLOADED):
+        return True
+    if condition not in (Condition.WARNING, Condition.ALARM) or not math.isfinite(value):
+        return False
+    if math.isfinite(low_edge) and math.isfinite(high_edge):
+        return value >= (low_edge + high_edge) / 2.0
+    return math.isfinite(high_edge)
+
+
+def _rx_advice(
+    condition: Condition,
+    value: float,
+    low_edge: float,
+    high_edge: float,
+    context: AdviceContext | None,
+    targets: MarginTargets,
+) -> Advice:
+    if rx_high_side(condition, value, low_edge, high_edge):
+        pad = pad_advice(value, high_edge, low_edge, targets, require_pad=True)
+        if pad.pad_db is None or pad.expected_rx_dbm is None:
+            text = "Rx is too high: add a fixed attenuator at the receiver."
+        else:
+            text = (
+                f"Add a fixed attenuator of {pad.pad_db:g} dB at the receiver "
+                f"(expected Rx {_fmt(pad.expected_rx_dbm)} dBm)."
+            )
+            if not pad.fits:
+                text += f" Note: {pad.reason}."
+        return Advice(text, LASER_CAUTION)
+    text = _CLEAN
+    growth = None if context is None else context.span_growth_db
+    if growth is not None and growth >= SPAN_GROWTH_NOTE_DB:
+        text += f" Span loss has grown {growth:.1f} dB since its baseline."
+    text += _wear_sentence(context)
+    return Advice(text, LASER_CAUTION)
+
+
+# --- summaries -----------------------------------------------------------------------
+
+_QUANTITY_WORDS = {
+    Quantity.RX_POWER: "Rx power",
+    Quantity.TX_POWER: "Tx power",
+    Quantity.BIAS: "Laser bias",
+    Quantity.TEMPERATURE: "Temperature",
+    Quantity.SUPPLY: "Supply voltage",
+}
+
+_EDGE_WORDS = {
+    "overload": "overload",
+    "sensitivity": "sensitivity",
+    "high_alarm": "high alarm",
+    "low_alarm": "low alarm",
+    "high_warning": "high warning",
+    "low_warning": "low warning",
+}
+
+
+def _num(x: float, unit: str) -> str:
+    if unit == "V":
+        return f"{x:.2f} V"
+    if unit == "dBm":
+        return f"{_fmt(x)} dBm"
+    return f"{x:.1f} {unit}"
+
+
+def _where(port: str, lane: int) -> str:
+    return f"{port} lane {lane}" if lane > 0 else port
+
+
+def resolved_summary(
+    quantity: Quantity,
+    port: str,
+    lane: int,
+    value: float | None,
+    was: Condition,
+    *,
+    gone_from: str | None = None,
+) -> str:
+    """One line for a resolved alert; ``gone_from`` names the device when the row vanished."""
+    where = _where(port, lane)
+    was_words = Condition(was).word.replace("_", " ")
+    if gone_from is not None:
+        return f"{where}: no longer reported by {gone_from} (was {was_words})"
+    if value is None or not math.isfinite(value):
+        return f"{where}: {was_words} has cleared"
+    name = _QUANTITY_WORDS[quantity]
+    return f"{name} on {where} back to {_num(value, quantity.unit)} (was {was_words})"
+
+
+def summarize(
+    condition: Condition,
+    quantity: Quantity,
+    port: str,
+    lane: int,
+    value: float | None,
+    edge_name: str,
+    edge_value: float | None,
+    window_source: str,
+) -> str:
+    """One line saying what is wrong, e.g. "Rx power -2.0 dBm on et-1 lane 1 is 1.0 dB
+    below overload (-1.0 dBm, pmd-table)"."""
+    condition = Condition(condition)
+    where = _where(port, lane)
+    if condition is Condition.DARK:
+        return f"No light on {where} while the port is admin up"
+    unit = quantity.unit
+    name = _QUANTITY_WORDS[quantity]
+    if value is None or not math.isfinite(value):
+        return f"{name} on {where}: {condition.word.replace('_', ' ')}"
+    head = f"{name} {_num(value, unit)} on {where}"
+    if not edge_name or edge_value is None or not math.isfinite(edge_value):
+        return f"{head}: {condition.word.replace('_', ' ')}"
+    edge = f"{_EDGE_WORDS.get(edge_name, edge_name)} ({_num(edge_value, unit)}, {window_source})"
+    gap = abs(value - edge_value)
+    gap_text = f"{gap:.1f} dB" if unit == "dBm" else _num(gap, unit)
+    if condition is Condition.NEAR_OVERLOAD:
+        return f"{head} is {gap_text} below {edge}"
+    if condition is Condition.NEAR_SENSITIVITY:
+        return f"{head} is {gap_text} above {edge}"
+    if condition is Condition.OVERLOADED or edge_name.startswith("high"):
+        return f"{head} is {gap_text} over {edge}"
+    return f"{head} is {gap_text} under {edge}"

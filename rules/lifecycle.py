@@ -1,0 +1,605 @@
+"""Alert lifecycle: from a device's stream of Assessments to open/update/stale/resolve events.
+
+The row ``condition`` an Assessment carries has already been through hysteresis and
+hold times (rules/hysteresis.py); this module adds what only an alert needs: a hold
+before opening and before resolving, a step below which a moving value is not worth an
+update, a separate "stale" state for devices that stopped answering, and a per-key
+sequence so that (key, sequence) is an idempotency key for delivery. The state is plain
+data and round-trips through a JSON-safe dict, so a restarted service neither reopens
+nor duplicates alerts. States and transitions: rules/README-lifecycle.md.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import asdict, dataclass, field, replace
+from typing import Any
+
+import numpy as np
+from lightwarden.collector.readings import Quantity, ReadingBatch
+from lightwarden.rules.advice import (
+    AdviceContext,
+    advise,
+    resolved_summary,
+    rx_high_side,
+    summarize,
+)
+from lightwarden.rules.assess import MarginTargets
+from lightwarden.rules.findings import (
+    SEVERITY_WORDS,
+    AlertEvent,
+    Assessment,
+    Condition,
+    WindowSource,
+)
+
+OPEN = "open"
+UPDATE = "update"
+STALE = "stale"
+RESOLVE = "resolve"
+
+# Phases of one key's track (see README-lifecycle.md for the table).
+PENDING = "pending"  # condition seen, open hold running, nothing sent yet
+FIRING = "firing"  # open sent, condition present
+CLEARING = "clearing"  # open sent, condition gone, resolve hold running
+STALE_ = "stale"  # open sent, device stopped answering
+STALE_CLEARING = "stale-clearing"  # device back after stale with the condition gone
+PHASES = frozenset({PENDING, FIRING, CLEARING, STALE_, STALE_CLEARING})
+
+ALERTNAMES: dict[Condition, str] = {
+    Condition.NEAR_OVERLOAD: "OpticRxNearOverload",
+    Condition.NEAR_SENSITIVITY: "OpticRxNearSensitivity",
+    Condition.OVERLOADED: "OpticRxOverloaded",
+    Condition.BELOW_SENSITIVITY: "OpticRxBelowSensitivity",
+    Condition.DARK: "OpticDark",
+    Condition.WARNING: "OpticThresholdWarning",
+    Condition.ALARM: "OpticThresholdAlarm",
+}
+
+#: Conditions that raise an alert: severity warning (2) or critical (3).
+_ALERTING = np.array([Condition(c).severity >= 2 for c in range(len(Condition))], dtype=bool)
+
+#: Default update steps: how far a value (or its margin) must move, in the quantity's
+#: unit, before an open alert is worth an update. Power in dB; the others are our
+#: choice, a little above DDM accuracy (SFF-8472: +-3 C, +-3 % Vcc, +-10 % bias; memory).
+DEFAULT_UPDATE_STEPS: dict[Quantity, float] = {
+    Quantity.RX_POWER: 1.0,
+    Quantity.TX_POWER: 1.0,
+    Quantity.BIAS: 2.0,
+    Quantity.TEMPERATURE: 3.0,
+    Quantity.SUPPLY: 0.1,
+}
+
+
+@dataclass(slots=True, frozen=True)
+class HoldPolicy:
+    """Alert-level holds and update step for one (quantity, lane)."""
+
+    open_hold_s: float = 0.0
+    resolve_hold_s: float = 0.0
+    gone_hold_s: float = 300.0
+    update_step: float = 1.0
+
+    def __post_init__(self) -> None:
+        for name in ("open_hold_s", "resolve_hold_s", "gone_hold_s"):
+            v = getattr(self, name)
+            if not math.isfinite(v) or v < 0:
+                raise ValueError(f"lifecycle policy: {name} must be a number >= 0, got {v!r}")
+        if not math.isfinite(self.update_step) or self.update_step <= 0:
+            raise ValueError(
+                f"lifecycle policy: update_step must be a number > 0, got {self.update_step!r}"
+            )
+
+
+@dataclass(slots=True, frozen=True)
+class PolicyOverride:
+    """Part of a HoldPolicy; fields left None keep the wider setting."""
+
+    open_hold_s: float | None = None
+    resolve_hold_s: float | None = None
+    gone_hold_s: float | None = None
+    update_step: float | None = None
+
+
+@dataclass(slots=True)
+class LifecycleConfig:
+    """Holds and steps: site-wide, then per quantity, then per (quantity, lane).
+
+    Defaults: the row ``condition`` has already waited out its own hold and hysteresis
+    (rules/hysteresis.py: 120 s to adopt, 300 s to clear), so alert-level open and
+    resolve holds default to 0 s: hold times live in one place, and a second hold only
+    delays the page. They exist for sites that want alerts slower than conditions.
+    The one thing only the lifecycle sees is a row that vanished from a device that
+    still answers (optic pulled, port renamed, a partial reply): that resolves after
+    ``gone_hold_s`` = 300 s (five polls at 60 s), so one short reply does not resolve
+    and reopen every alert on the device.
+    """
+
+    open_hold_s: float = 0.0
+    resolve_hold_s: float = 0.0
+    gone_hold_s: float = 300.0
+    update_steps: dict[Quantity, float] = field(default_factory=lambda: dict(DEFAULT_UPDATE_STEPS))
+    per_quantity: dict[Quantity, PolicyOverride] = field(default_factory=dict)
+    per_lane: dict[tuple[Quantity, int], PolicyOverride] = field(default_factory=dict)
+    targets: MarginTargets = field(default_factory=MarginTargets)
+    _cache: dict[tuple[int, int], HoldPolicy] = field(default_factory=dict, repr=False)
+
+    def policy(self, quantity: Quantity, lane: int) -> HoldPolicy:
+        cache_key = (int(quantity), lane)
+        found = self._cache.get(cache_key)
+        if found is not None:
+            return found
+        values = {
+            "open_hold_s": self.open_hold_s,
+            "resolve_hold_s": self.resolve_hold_s,
+            "gone_hold_s": self.gone_hold_s,
+            "update_step": self.update_steps.get(Quantity(quantity), 1.0),
+        }
+        for override in (self.per_quantity.get(quantity), self.per_lane.get((quantity, lane))):
+            if override is not None:
+                for name in values:
+                    v = getattr(override, name)
+                    if v is not None:
+                        values[name] = v
+        try:
+            found = HoldPolicy(**values)
+        except ValueError as exc:
+            raise ValueError(f"{exc} (for {Quantity(quantity).label} lane {lane})") from None
+        self._cache[cache_key] = found
+        return found
+
+
+_BY_LABEL = {q.label: q for q in Quantity}
+
+
+def _escape(part: str) -> str:
+    return part.replace("%", "%25").replace("|", "%7C")
+
+
+def alert_key(device: str, port: str, lane: int, quantity: Quantity) -> str:
+    """Stable identity of one alert subject: "device|port|lane|quantity".
+
+    No instance id in it, so two monitors watching the same device agree on it. "|" and
+    "%" inside names are percent-escaped so that the key splits back unambiguously.
+    """
+    return f"{_escape(device)}|{_escape(port)}|{lane}|{Quantity(quantity).label}"
+
+
+@dataclass(slots=True)
+class Track:
+    """What the lifecycle remembers about one key."""
+
+    device: str
+    phase: str
+    condition: int
+    since: float  # first seen (pending since); the alert's starts_at
+    clear_since: float | None = None  # first clear observation of the current clear run
+    last: AlertEvent | None = None  # last event sent; None while pending
+
+
+@dataclass(slots=True)
+class LifecycleState:
+    """Every open or pending alert, and the last sequence number used per key.
+
+    Sequences outlive their alerts: a key that alerts again continues its count, so
+    (key, sequence) never repeats.
+    """
+
+    tracks: dict[str, Track] = field(default_factory=dict)
+    sequences: dict[str, int] = field(default_factory=dict)
+    _by_device: dict[str, set[str]] = field(default_factory=dict, repr=False)
+
+    def keys_for(self, device: str) -> set[str]:
+        return self._by_device.get(device, set())
+
+    def add(self, key: str, track: Track) -> None:
+        self.tracks[key] = track
+        self._by_device.setdefault(track.device, set()).add(key)
+
+    def drop(self, key: str) -> None:
+        track = self.tracks.pop(key)
+        keys = self._by_device.get(track.device)
+        if keys is not None:
+            keys.discard(key)
+            if not keys:
+                del self._by_device[track.device]
+
+    def next_sequence(self, key: str) -> int:
+        seq = self.sequences.get(key, 0) + 1
+        self.sequences[key] = seq
+        return seq
+
+    # --- persistence ------------------------------------------------------------------
+
+    FORMAT = "lightwarden.lifecycle/1"
+
+    def to_dict(self) -> dict[str, Any]:
+        """A JSON-safe snapshot (str keys; numbers, strings, None, lists, dicts)."""
+        return {
+            "format": self.FORMAT,
+            "tracks": {
+                key: {
+                    "device": t.device,
+                    "phase": t.phase,
+                    "condition": Condition(t.condition).word,
+                    "since": t.since,
+                    "clear_since": t.clear_since,
+                    "last": None if t.last is None else asdict(t.last),
+                }
+                for key, t in self.tracks.items()
+            },
+            "sequences": dict(self.sequences),
+        }
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> LifecycleState:
+        """Rebuild a state from ``to_dict`` output; a clear ValueError names what is wrong."""
+        where = "lifecycle snapshot"
+        if not isinstance(data, Mapping):
+            raise ValueError(f"{where}: expected a mapping, got {type(data).__name__}")
+        if data.get("format") != cls.FORMAT:
+            raise ValueError(f"{where}: format is {data.get('format')!r}, expected {cls.FORMAT!r}")
+        state = cls()
+        sequences = data.get("sequences", {})
+        if not isinstance(sequences, Mapping):
+            raise ValueError(f"{where}: 'sequences' must be a mapping")
+        for key, seq in sequences.items():
+            if (
+                not isinstance(key, str)
+                or isinstance(seq, bool)
+                or not isinstance(seq, int)
+                or seq < 0
+            ):
+                raise ValueError(
+                    f"{where}: sequences[{key!r}] must be an integer >= 0, got {seq!r}"
+                )
+            state.sequences[key] = seq
+        tracks = data.get("tracks", {})
+        if not isinstance(tracks, Mapping):
+            raise ValueError(f"{where}: 'tracks' must be a mapping")
+        for key, raw in tracks.items():
+            state.add(str(key), _track_from_dict(f"{where}: tracks[{key!r}]", raw))
+            state.sequences.setdefault(str(key), 0)
+        return state
+
+
+_EVENT_FIELDS = frozenset(AlertEvent.__dataclass_fields__)
+
+
+def _track_from_dict(where: str, raw: Any) -> Track:
+    if not isinstance(raw, Mapping):
+        raise ValueError(f"{where}: expected a mapping")
+    phase = raw.get("phase")
+    if phase not in PHASES:
+        raise ValueError(f"{where}.phase: unknown phase {phase!r}")
+    try:
+        condition = Condition[str(raw.get("condition", "")).upper()]
+    except KeyError:
+        raise ValueError(f"{where}.condition: unknown condition {raw.get('condition')!r}") from None
+    since = raw.get("since")
+    clear_since = raw.get("clear_since")
+    if not isinstance(since, int | float) or isinstance(since, bool):
+        raise ValueError(f"{where}.since: expected epoch seconds, got {since!r}")
+    if clear_since is not None and not isinstance(clear_since, int | float):
+        raise ValueError(
+            f"{where}.clear_since: expected epoch seconds or null, got {clear_since!r}"
+        )
+    last_raw = raw.get("last")
+    last = None
+    if last_raw is not None:
+        if not isinstance(last_raw, Mapping) or set(last_raw) != _EVENT_FIELDS:
+            raise ValueError(
+                f"{where}.last: expected an alert event with fields {sorted(_EVENT_FIELDS)}"
+            )
+        last = AlertEvent(**last_raw)
+    if phase != PENDING and last is None:
+        raise ValueError(f"{where}: phase {phase!r} needs the last event sent")
+    device = raw.get("device")
+    if not isinstance(device, str) or not device:
+        raise ValueError(f"{where}.device: expected a device name")
+    return Track(device, phase, int(condition), float(since), clear_since, last)
+
+
+def _opt(x: float) -> float | None:
+    return float(x) if math.isfinite(x) else None
+
+
+class AlertLifecycle:
+    """Turns Assessments into AlertEvents, one device at a time, with time passed in."""
+
+    def __init__(self, config: LifecycleConfig | None = None, state: LifecycleState | None = None):
+        self.config = config if config is not None else LifecycleConfig()
+        self.state = state if state is not None else LifecycleState()
+
+    @classmethod
+    def restore(
+        cls, snapshot: Mapping[str, Any], config: LifecycleConfig | None = None
+    ) -> AlertLifecycle:
+        return cls(config, LifecycleState.from_dict(snapshot))
+
+    def snapshot(self) -> dict[str, Any]:
+        return self.state.to_dict()
+
+    # --- input ---------------------------------------------------------------------
+
+    def observe(
+        self,
+        assessment: Assessment,
+        now: float,
+        context: Mapping[tuple[str, int, Quantity], AdviceContext] | None = None,
+    ) -> list[AlertEvent]:
+        """Feed one device's Assessment. ``context`` adds history facts to the advice,
+        keyed by (port, lane, quantity)."""
+        batch = assessment.batch
+        _check_aligned(assessment)
+        if not math.isfinite(now):
+            raise ValueError(
+                f"lifecycle for {batch.device}: now must be epoch seconds, got {now!r}"
+            )
+        cond = assessment.condition.astype(np.intp, copy=False)
+        if cond.size and (cond.min() < 0 or cond.max() >= len(Condition)):
+            raise ValueError(f"lifecycle for {batch.device}: condition codes out of range")
+        alerting = _ALERTING[cond]
+        device = batch.device
+        tracked = self.state.keys_for(device)
+        rows = range(len(batch)) if tracked else np.flatnonzero(alerting)
+        row_of: dict[str, int] = {}
+        for i in rows:
+            key = _row_key(batch, int(i))
+            j = row_of.get(key)
+            if j is None or Condition(cond[i]).severity > Condition(cond[j]).severity:
+                row_of[key] = int(i)
+        events: list[AlertEvent] = []
+        for key, i in row_of.items():
+            if alerting[i]:
+                self._bad(key, i, assessment, now, context, events)
+        for key in list(tracked):
+            i = row_of.get(key)
+            if i is None:
+                self._clear(key, None, assessment, now, events)  # the optic is gone
+            elif not alerting[i] and cond[i] != Condition.UNKNOWN:
+                self._clear(key, i, assessment, now, events)
+            # UNKNOWN: no evidence either way; the track waits as it is.
+        return events
+
+    def mark_stale(self, device: str, now: float) -> list[AlertEvent]:
+        """Call when a poll of ``device`` failed. Open alerts become stale (not resolved);
+        pending ones are dropped, since their hold can no longer be confirmed."""
+        events: list[AlertEvent] = []
+        for key in list(self.state.keys_for(device)):
+            track = self.state.tracks[key]
+            if track.phase == PENDING:
+                self.state.drop(key)
+                continue
+            if track.phase == STALE_:
+                continue
+            was_stale = track.phase == STALE_CLEARING
+            track.phase = STALE_
+            track.clear_since = None  # a clear run must be continuous observations
+            if was_stale:
+                continue
+            assert track.last is not None
+            last = track.last
+            event = replace(
+                last,
+                kind=STALE,
+                sequence=self.state.next_sequence(key),
+                summary=f"No answer from {device}; last known: {_last_summary(last)}",
+                at=now,
+            )
+            track.last = event
+            events.append(event)
+        return events
+
+    # --- transitions -----------------------------------------------------------------
+
+    def _bad(
+        self,
+        key: str,
+        i: int,
+        assessment: Assessment,
+        now: float,
+        context: Mapping[tuple[str, int, Quantity], AdviceContext] | None,
+        events: list[AlertEvent],
+    ) -> None:
+        batch = assessment.batch
+        quantity = Quantity(int(batch.quantity[i]))
+        lane = int(batch.lane[i])
+        policy = self.config.policy(quantity, lane)
+        condition = int(assessment.condition[i])
+        track = self.state.tracks.get(key)
+        if track is None:
+            track = Track(batch.device, PENDING, condition, now)
+            self.state.add(key, track)
+        if track.phase == PENDING:
+            track.condition = condition
+            if now - track.since >= policy.open_hold_s:
+                event = self._event(OPEN, key, i, assessment, now, track.since, context)
+                track.phase, track.last = FIRING, event
+                events.append(event)
+            return
+        was_stale = track.phase in (STALE_, STALE_CLEARING)
+        track.phase, track.clear_since, track.condition = FIRING, None, condition
+        event = self._event(UPDATE, key, i, assessment, now, track.since, context, sequence=0)
+        assert track.last is not None
+        if was_stale or _material(track.last, event, policy.update_step):
+            event = replace(event, sequence=self.state.next_sequence(key))
+            track.last = event
+            events.append(event)
+
+    def _clear(
+        self, key: str, i: int | None, assessment: Assessment, now: float, events: list[AlertEvent]
+    ) -> None:
+        track = self.state.tracks[key]
+        if track.phase == PENDING:
+            self.state.drop(key)
+            return
+        if track.clear_since is None:
+            track.clear_since = now
+            track.phase = STALE_CLEARING if track.phase == STALE_ else CLEARING
+        assert track.last is not None
+        last = track.last
+        policy = self.config.policy(_BY_LABEL[last.quantity], last.lane)
+        hold = policy.gone_hold_s if i is None else policy.resolve_hold_s
+        if now - track.clear_since < hold:
+            return
+        value = None if i is None else _opt(float(assessment.batch.value[i]))
+        summary = resolved_summary(
+            _BY_LABEL[last.quantity],
+            last.port,
+            last.lane,
+            value,
+            Condition[last.condition.upper()],
+            gone_from=last.device if i is None else None,
+        )
+        event = replace(
+            last,
+            kind=RESOLVE,
+            sequence=self.state.next_sequence(key),
+            value=value,
+            margin_db=None,
+            summary=summary,
+            advice="",
+            caution="",
+            ends_at=track.clear_since,
+            at=now,
+        )
+        self.state.drop(key)
+        events.append(event)
+
+    def _event(
+        self,
+        kind: str,
+        key: str,
+        i: int,
+        a: Assessment,
+        now: float,
+        starts_at: float,
+        context: Mapping[tuple[str, int, Quantity], AdviceContext] | None,
+        sequence: int | None = None,
+    ) -> AlertEvent:
+        batch = a.batch
+        optic = batch.optics[int(batch.optic[i])]
+        quantity = Quantity(int(batch.quantity[i]))
+        lane = int(batch.lane[i])
+        condition = Condition(int(a.condition[i]))
+        value = _opt(float(batch.value[i]))
+        low, high = float(a.low_edge[i]), float(a.high_edge[i])
+        edge_name, edge_value, margin = _edge(condition, quantity, value, a, i)
+        ctx = context.get((optic.port, lane, quantity)) if context else None
+        words = advise(
+            condition,
+            quantity,
+            math.nan if value is None else value,
+            low_edge=low,
+            high_edge=high,
+            context=ctx,
+            targets=self.config.targets,
+        )
+        source = WindowSource(int(a.window_source[i])).word
+        return AlertEvent(
+            kind=kind,
+            key=key,
+            sequence=self.state.next_sequence(key) if sequence is None else sequence,
+            alertname=ALERTNAMES[condition],
+            severity=SEVERITY_WORDS[condition.severity],
+            device=batch.device,
+            port=optic.port,
+            lane=lane,
+            quantity=quantity.label,
+            condition=condition.word,
+            value=value,
+            unit=quantity.unit,
+            edge_name=edge_name,
+            edge_value=edge_value,
+            window_source=source,
+            margin_db=margin,
+            rate_per_day=None if ctx is None else ctx.rate_per_day,
+            summary=summarize(
+                condition, quantity, optic.port, lane, value, edge_name, edge_value, source
+            ),
+            advice=words.text,
+            caution=words.caution,
+            starts_at=starts_at,
+            at=now,
+        )
+
+
+def _row_key(batch: ReadingBatch, i: int) -> str:
+    optic = batch.optics[int(batch.optic[i])]
+    return alert_key(batch.device, optic.port, int(batch.lane[i]), Quantity(int(batch.quantity[i])))
+
+
+def _check_aligned(a: Assessment) -> None:
+    n = len(a.batch)
+    for name in (
+        "low_edge",
+        "high_edge",
+        "low_warning",
+        "high_warning",
+        "window_source",
+        "margin_low_db",
+        "margin_high_db",
+        "instant",
+        "condition",
+    ):
+        size = getattr(a, name).shape[0]
+        if size != n:
+            raise ValueError(
+                f"assessment for {a.batch.device}: {name} has {size} rows, the batch has {n}"
+            )
+
+
+def _edge(
+    condition: Condition, quantity: Quantity, value: float | None, a: Assessment, i: int
+) -> tuple[str, float | None, float | None]:
+    """Which edge the alert is about, its value, and the margin to it in dB (power only)."""
+    low, high = float(a.low_edge[i]), float(a.high_edge[i])
+    if quantity is Quantity.RX_POWER:
+        if rx_high_side(condition, math.nan if value is None else value, low, high):
+            return "overload", _opt(high), _opt(float(a.margin_high_db[i]))
+        return "sensitivity", _opt(low), _opt(float(a.margin_low_db[i]))
+    if value is None:
+        return "", None, None
+    if condition is Condition.ALARM:
+        hi_name, lo_name, hi, lo = "high_alarm", "low_alarm", high, low
+    else:
+        hi_name, lo_name = "high_warning", "low_warning"
+        hi, lo = float(a.high_warning[i]), float(a.low_warning[i])
+    if math.isfinite(hi) and value >= hi:
+        return hi_name, hi, _opt(float(a.margin_high_db[i]))
+    if math.isfinite(lo) and value <= lo:
+        return lo_name, lo, _opt(float(a.margin_low_db[i]))
+    return "", None, None
+
+
+#: Readings come in 0.01 dB steps; without slack, -2.3 - (-1.8) = 0.4999... misses 0.5.
+_STEP_SLACK = 1e-9
+
+
+def _material(last: AlertEvent, new: AlertEvent, step: float) -> bool:
+    """Is ``new`` different enough from what the receiver last heard to send it?"""
+    if (last.condition, last.edge_name, last.window_source) != (
+        new.condition,
+        new.edge_name,
+        new.window_source,
+    ):
+        return True
+    for old, cur in (
+        (last.value, new.value),
+        (last.margin_db, new.margin_db),
+        (last.edge_value, new.edge_value),
+    ):
+        if (old is None) != (cur is None):
+            return True
+        if old is not None and cur is not None and abs(cur - old) >= step - _STEP_SLACK:
+            return True
+    return False
+
+
+def _last_summary(last: AlertEvent) -> str:
+    prefix = "No answer from "
+    if last.summary.startswith(prefix):  # never nest "last known" inside itself
+        return last.summary.split("; last known: ", 1)[-1]
+    return last.summary

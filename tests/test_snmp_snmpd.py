@@ -1,0 +1,224 @@
+"""The SNMP source against a real net-snmp snmpd serving fixtures/snmpd/dataset.conf.
+
+Cross-check: net-snmp's own CLI (snmpbulkwalk/snmpget, C, independent of pysnmp) reads
+the same agent; its raw numbers, converted with the RFC 3433 formula written out here
+(physical = value x 10^((scale-9) x 3) x 10^-precision; dBm = 10 log10(P / 1 mW)),
+must agree with what the collector reports.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import math
+import re
+
+import pytest
+from _snmpd import SnmpdAgent, start_snmpd
+from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
+from lightwarden.collector.snmp import EnginePool, SnmpCredentials, SnmpSource
+
+pytestmark = pytest.mark.external
+
+SENSOR = "1.3.6.1.2.1.99.1.1.1"
+ENT_NAME = "1.3.6.1.2.1.47.1.1.1.1.7"
+# IEEE 802.3 PMD names (trade terms); "100GBASE-LR" is a decoy shorter than the real one
+PMD_NAMES = ("10GBASE-LR", "10GBASE-SR", "100GBASE-LR4", "100GBASE-LR", "100GBASE-SR4")
+
+_LINE = re.compile(r'^\.?([\d.]+) = (?:(INTEGER|STRING|OID|Timeticks): )?"?(.*?)"?$')
+
+
+@pytest.fixture(scope="module")
+def agent(tmp_path_factory):
+    snmpd = start_snmpd(tmp_path_factory.mktemp("snmpd"))
+    yield snmpd
+    snmpd.stop()
+
+
+def cli_walk(agent: SnmpdAgent, oid: str, v3: bool = False) -> dict[str, tuple[str, str]]:
+    """net-snmp snmpbulkwalk -On output as {oid: (type, text)}."""
+    rows = {}
+    for line in agent.cli("snmpbulkwalk", oid, v3=v3).splitlines():
+        match = _LINE.match(line.strip())
+        if match:
+            rows[match.group(1)] = (match.group(2) or "", match.group(3))
+    return rows
+
+
+Key = tuple[str, Quantity, int]
+
+
+def expected_from_cli(agent: SnmpdAgent, v3: bool = False) -> dict[Key, tuple]:
+    """(port, quantity, lane) -> (ReadingStatus, value) computed from net-snmp's raw output."""
+    walked = cli_walk(agent, SENSOR, v3=v3)
+    names = cli_walk(agent, ENT_NAME, v3=v3)
+
+    def column(col: int, index: str) -> tuple[str, str]:
+        return walked[f"{SENSOR}.{col}.{index}"]
+
+    expected = {}
+    for oid, (_, name) in names.items():
+        index = oid.rsplit(".", 1)[1]
+        words = name.split()
+        if f"{SENSOR}.1.{index}" not in walked or not words[0].startswith("Eth"):
+            continue
+        port, rest = words[0], " ".join(words[1:])
+        lane = int(rest.rsplit(" ", 1)[1]) if "Lane" in rest else 0
+        quantity = {
+            "Rx Power": Quantity.RX_POWER,
+            "Tx Power": Quantity.TX_POWER,
+            "Bias": Quantity.BIAS,
+            "Temperature": Quantity.TEMPERATURE,
+            "Supply Voltage": Quantity.SUPPLY,
+        }[rest.split(" Lane")[0]]
+        kind = int(column(1, index)[1])
+        scale, precision = int(column(2, index)[1]), int(column(3, index)[1])
+        value_type, value_text = column(4, index)
+        status, units = int(column(5, index)[1]), column(6, index)[1]
+        if status != 1:
+            expected[(port, quantity, lane)] = (ReadingStatus.UNAVAILABLE, None)
+            continue
+        if value_type != "INTEGER":
+            expected[(port, quantity, lane)] = (ReadingStatus.INVALID, None)
+            continue
+        # RFC 3433 (standards.md, verified): value x 10^((scale-9)*3) x 10^-precision
+        physical = int(value_text) * 10.0 ** ((scale - 9) * 3) * 10.0 ** (-precision)
+        if kind == 6:  # watts -> dBm (textbook definition)
+            result = (ReadingStatus.NO_LIGHT, None) if physical == 0 else (
+                ReadingStatus.OK, 10 * math.log10(physical / 1e-3))
+        elif kind == 1 and units == "dBm":  # contract: -40 dBm floor = no light
+            result = (ReadingStatus.NO_LIGHT, None) if physical <= -40 else (
+                ReadingStatus.OK, physical)
+        elif kind == 5:  # amperes -> mA
+            result = (ReadingStatus.OK, physical * 1e3)
+        else:  # celsius, voltsDC
+            result = (ReadingStatus.OK, physical)
+        expected[(port, quantity, lane)] = result
+    return expected
+
+
+def poll_once(agent: SnmpdAgent, credentials: SnmpCredentials, polls: int = 1) -> list[PollOutcome]:
+    async def main():
+        pool = EnginePool()
+        source = SnmpSource("hgl-edge-02", "127.0.0.1", credentials, port=agent.port,
+                            timeout=2.0, retries=1, engines=pool, pmd_names=PMD_NAMES)  # fmt: skip
+        try:
+            return [await source.poll(1_800_000_000.0 + i) for i in range(polls)], source
+        finally:
+            pool.close()
+
+    outcomes, source = asyncio.run(main())
+    assert source.discoveries == 1  # later polls reused the cached discovery
+    return outcomes
+
+
+def rows_by_key(outcome: PollOutcome) -> dict[tuple[str, Quantity, int], tuple]:
+    assert outcome.ok, outcome.error
+    return {(o.port, q, lane): (status, value, note)
+            for o, lane, q, value, status, note in outcome.batch.rows()}  # fmt: skip
+
+
+def assert_agrees(outcome: PollOutcome, expected: dict) -> None:
+    got = rows_by_key(outcome)
+    assert set(got) == set(expected)
+    for key, (status, value) in expected.items():
+        got_status, got_value, note = got[key]
+        assert got_status is status, (key, note)
+        if status is ReadingStatus.OK:
+            assert got_value == pytest.approx(value, abs=1e-9), key
+        else:
+            assert math.isnan(got_value) and note, key
+
+
+@pytest.mark.parametrize("version", ["v2c", "v3-authPriv-SHA-AES"])
+def test_collector_agrees_with_net_snmp_cli(agent, version):
+    v3 = version != "v2c"
+    credentials = (
+        SnmpCredentials.v3(agent.v3user, agent.authkey, agent.privkey, "SHA", "AES-128")
+        if v3
+        else SnmpCredentials.v2c(agent.community)
+    )
+    expected = expected_from_cli(agent, v3=v3)
+    assert len(expected) == 19  # 5 sensors on Eth1/1 + 14 on Eth1/2; the fan is not an optic
+    first, second = poll_once(agent, credentials, polls=2)
+    assert_agrees(first, expected)
+    assert_agrees(second, expected)
+    assert first.batch.taken_at == 1_800_000_000.0
+
+
+def test_spot_values_from_the_dataset(agent):
+    # Dataset numbers chosen from standards.md conversions (computed): 151.4 uW = -8.20 dBm,
+    # 0.5 mW = -3.010 dBm; contract encoding (b) -1440 = -14.40 dBm
+    (outcome,) = poll_once(agent, SnmpCredentials.v2c(agent.community))
+    rows = rows_by_key(outcome)
+    assert rows[("Eth1/1", Quantity.RX_POWER, 1)][1] == pytest.approx(-8.20, abs=0.005)
+    assert rows[("Eth1/1", Quantity.TX_POWER, 1)][1] == pytest.approx(-3.010, abs=0.0005)
+    assert rows[("Eth1/2", Quantity.RX_POWER, 4)][1] == pytest.approx(-14.40)
+    assert rows[("Eth1/2", Quantity.RX_POWER, 3)][0] is ReadingStatus.NO_LIGHT
+    assert rows[("Eth1/2", Quantity.TX_POWER, 4)][0] is ReadingStatus.INVALID
+    assert rows[("Eth1/2", Quantity.BIAS, 4)][0] is ReadingStatus.UNAVAILABLE
+
+
+def test_optic_identities(agent):
+    (outcome,) = poll_once(agent, SnmpCredentials.v2c(agent.community))
+    sfp, qsfp = outcome.batch.optics
+    cli = {oid: text for oid, (_, text) in cli_walk(agent, "1.3.6.1.2.1.31.1.1.1").items()}
+    assert (sfp.port, sfp.if_index) == (cli["1.3.6.1.2.1.31.1.1.1.1.1"], 1)
+    assert sfp.alias == cli["1.3.6.1.2.1.31.1.1.1.18.1"]
+    assert (sfp.form_factor, sfp.pmd, sfp.pmd_source) == ("SFP+", "10GBASE-LR", "entity")
+    assert (sfp.part_number, sfp.serial) == ("HGW-SFP10-LR", "HGW10LR00017")
+    assert (sfp.oper_up, sfp.admin_up, sfp.lanes) == (True, True, 1)
+    assert (qsfp.port, qsfp.if_index, qsfp.form_factor) == ("Eth1/2", 2, "QSFP28")
+    assert qsfp.pmd == "100GBASE-LR4"  # longest known name wins over "100GBASE-LR"
+    assert (qsfp.oper_up, qsfp.admin_up, qsfp.lanes) == (False, True, 4)
+    assert {o.device for o in outcome.batch.optics} == {"hgl-edge-02"}
+
+
+def test_v3_wrong_key_is_auth_error_without_secrets(agent):
+    wrong = "not-the-" + agent.authkey
+    credentials = SnmpCredentials.v3(agent.v3user, wrong, agent.privkey)
+    (outcome,) = _poll_failing(agent, credentials)
+    assert not outcome.ok and outcome.error_kind == "auth"
+    assert outcome.error.startswith("hgl-edge-02:")
+    for secret in (wrong, agent.authkey, agent.privkey, agent.community):
+        assert secret not in outcome.error
+        assert secret not in repr(credentials)
+
+
+def test_v3_unknown_user_is_auth_error(agent):
+    credentials = SnmpCredentials.v3("hgl-nobody", agent.authkey, agent.privkey)
+    (outcome,) = _poll_failing(agent, credentials)
+    assert outcome.error_kind == "auth" and "Unknown USM user" in outcome.error
+
+
+def _poll_failing(agent: SnmpdAgent, credentials: SnmpCredentials) -> list[PollOutcome]:
+    async def main():
+        pool = EnginePool()
+        source = SnmpSource("hgl-edge-02", "127.0.0.1", credentials, port=agent.port,
+                            timeout=1.0, retries=0, engines=pool)  # fmt: skip
+        try:
+            return [await source.poll(0.0)]
+        finally:
+            pool.close()
+
+    return asyncio.run(main())
+
+
+def test_engines_one_per_v3_credential_set(agent):
+    async def main():
+        pool = EnginePool()
+        a = SnmpCredentials.v3(agent.v3user, agent.authkey, agent.privkey)
+        b = SnmpCredentials.v3(agent.v3user, agent.authkey, agent.privkey)
+        c = SnmpCredentials.v3(agent.v3user, agent.authkey + "-2", agent.privkey)
+        v2c = [SnmpCredentials.v2c(agent.community), SnmpCredentials.v2c("other-community")]
+        sources = [
+            SnmpSource(f"hgl-{i}", "127.0.0.1", creds, port=agent.port, engines=pool)
+            for i, creds in enumerate([a, b, c, *v2c])
+        ]
+        outcomes = await asyncio.gather(*(s.poll(0.0) for s in sources[:2]))
+        engines = len(pool)
+        pool.close()
+        return outcomes, engines
+
+    outcomes, engines = asyncio.run(main())
+    assert all(o.ok for o in outcomes)
+    assert engines == 3  # a and b share; c has its own; both communities share the v2c engine

@@ -4,7 +4,7 @@ Rx power (value in dBm, window low edge = sensitivity, high edge = overload):
 
 - value at or over the overload edge: OVERLOADED; at or under sensitivity: BELOW_SENSITIVITY;
 - less than ``overload_db`` below overload: NEAR_OVERLOAD; less than ``sensitivity_db``
-  above sensitivity: NEAR_SENSITIVITY (if both, the one short by more);
+  above sensitivity: NEAR_SENSITIVITY (if both, the nearer edge);
 - otherwise HEALTHY.
 
 Other quantities: past a high/low alarm: ALARM; past a high/low warning: WARNING.
@@ -84,7 +84,11 @@ def judge(
         short_s = np.nan_to_num(short_s, nan=-np.inf)
         out = np.full(value.shape, int(Condition.HEALTHY), dtype=np.int8)
         near = np.maximum(short_o, short_s) > 0.0
-        out[near] = np.where(short_o[near] > short_s[near], Condition.NEAR_OVERLOAD,
+        # Both targets missed (a window narrower than the two targets): name the nearer edge.
+        nearer_overload = np.where(
+            (short_s > 0.0) & (short_o > 0.0), m_high < m_low, short_o > 0.0
+        )
+        out[near] = np.where(nearer_overload[near], Condition.NEAR_OVERLOAD,
                              Condition.NEAR_SENSITIVITY)
         out[is_rx & (m_low <= shrink)] = Condition.BELOW_SENSITIVITY
         out[is_rx & (m_high <= shrink)] = Condition.OVERLOADED

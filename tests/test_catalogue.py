@@ -147,7 +147,7 @@ HEADER = "name,clause,tx_min_dbm,tx_max_dbm,rx_overload_dbm,rx_min_avg_dbm,sourc
 @pytest.mark.parametrize(
     ("text", "message"),
     [
-        (HEADER + "X-1,1,-3,0,abc,-10,site\n", r"site\.csv: row 2, column 'rx_overload_dbm'.*'abc'"),
+        (HEADER + "X-1,1,-3,0,abc,-10,s\n", r"site\.csv: row 2, column 'rx_overload_dbm'.*'abc'"),
         (HEADER + "X-1,1,-3,0,0,-10,s\nx-1,1,-3,0,0,-10,s\n", r"row 3, column 'name'.*row 2"),
         (HEADER + ",1,-3,0,0,-10,s\n", r"row 2, column 'name'"),
         (HEADER + "X-1,1,-3,0,0,,s\n", r"row 2, column 'rx_min_avg_dbm': a value is required"),

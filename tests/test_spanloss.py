@@ -1,0 +1,162 @@
+"""Span loss: engineered budget (ITU-T G.652 App. I form), measured loss, link consistency."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from lightwarden.collector.readings import (
+    BatchBuilder,
+    OpticIdentity,
+    Quantity,
+    ReadingStatus,
+)
+from lightwarden.rules.spanloss import (
+    BELOW_BUDGET,
+    EXCESS_LOSS,
+    NOT_ENOUGH,
+    WITHIN_BUDGET,
+    PlanningCoefficients,
+    PlantSpan,
+    check_link,
+    engineered_loss_db,
+    fibre_db_per_km,
+    judge_span_loss,
+    link_attenuation_db,
+    measure_span_loss,
+    span_loss_growth,
+)
+
+T0 = 1_800_000_000.0
+
+
+def test_worked_loss_budget_example():
+    # source: standards.md "Fibre plant" worked example, computed from the ITU-T G.652
+    # Appendix I form (verified) with TIA-568 maxima: connector pair 0.75 dB (verified),
+    # splice 0.3 dB (from memory): 10 km x 0.4 + 2 x 0.75 + 2 x 0.3 = 6.1 dB.
+    assert link_attenuation_db(10.0, 0.4, 2, 0.75, 2, 0.3) == pytest.approx(6.1)
+
+
+def test_g652_typical_attenuation_at_1550():
+    # source: ITU-T G.652 Appendix I, 0.275 dB/km at 1530-1565 nm (standards.md, verified):
+    # 40 km of fibre alone is 11.0 dB.
+    assert link_attenuation_db(40.0, 0.275, 0, 0.0, 0, 0.0) == pytest.approx(11.0)
+    coeffs = PlanningCoefficients(sm_1550_db_per_km=0.275, connector_db=0.0, splice_db=0.0)
+    span = PlantSpan("hgl-a", "et-1", "hgl-b", "et-1", 40.0, "OS2", 1550.0, 0, 0)
+    assert engineered_loss_db(span, coeffs) == pytest.approx(11.0)
+
+
+def test_planning_coefficients_by_band():
+    # source: standards.md "Fibre plant" planning values (common practice): SM 0.4 dB/km
+    # at 1310, 0.25 at 1550, MM 3 dB/km at 850, connector 0.5 dB, fusion splice 0.1 dB.
+    assert fibre_db_per_km("OS2", 1310.0) == 0.4
+    assert fibre_db_per_km("os2", 1550.0) == 0.25
+    assert fibre_db_per_km("OM4", 850.0) == 3.0
+    lr = PlantSpan("hgl-a", "et-1", "hgl-b", "et-2", 10.0, "OS2", 1310.0, connectors=2, splices=2)
+    assert engineered_loss_db(lr) == pytest.approx(4.0 + 1.0 + 0.2)
+    sr = PlantSpan("hgl-a", "et-3", "hgl-b", "et-4", 0.3, "OM4", 850.0, connectors=2, pad_db=0.0)
+    assert engineered_loss_db(sr) == pytest.approx(0.9 + 1.0)
+    padded = PlantSpan("hgl-a", "et-5", "hgl-c", "et-1", 40.0, "OS2", 1550.0, 4, 0, pad_db=5.0)
+    assert engineered_loss_db(padded) == pytest.approx(10.0 + 2.0 + 5.0)
+
+
+def test_bad_plant_records_name_the_span():
+    span = PlantSpan("hgl-a", "et-1", "hgl-b", "et-1", 10.0, "copper", 1310.0)
+    with pytest.raises(ValueError, match=r"hgl-a et-1 -> hgl-b et-1: unknown fibre type 'copper'"):
+        engineered_loss_db(span)
+    span = PlantSpan("hgl-a", "et-1", "hgl-b", "et-1", -2.0, "OS2", 1310.0)
+    with pytest.raises(ValueError, match="length_km"):
+        engineered_loss_db(span)
+
+
+def _two_ends(tx_mw_a: list[float], rx_b: list[float | None]):
+    a = BatchBuilder("hgl-a")
+    oa = a.add_optic(OpticIdentity(device="hgl-a", port="et-1", lanes=len(tx_mw_a)))
+    for lane, mw in enumerate(tx_mw_a, start=1):
+        a.add_power_mw(oa, lane, Quantity.TX_POWER, mw)
+    b = BatchBuilder("hgl-b")
+    ob = b.add_optic(OpticIdentity(device="hgl-b", port="et-9", lanes=len(rx_b)))
+    other = b.add_optic(OpticIdentity(device="hgl-b", port="et-10"))
+    b.add(other, 1, Quantity.RX_POWER, -30.0)  # another port: must not be picked up
+    for lane, dbm in enumerate(rx_b, start=1):
+        if dbm is None:
+            b.add(ob, lane, Quantity.RX_POWER, None, ReadingStatus.NO_LIGHT)
+        else:
+            b.add(ob, lane, Quantity.RX_POWER, dbm)
+    return a.build(T0), b.build(T0 + 2)
+
+
+SPAN = PlantSpan("hgl-a", "et-1", "hgl-b", "et-9", 10.0, "OS2", 1310.0, 2, 2)
+
+
+def test_measured_loss_is_tx_minus_rx_per_lane():
+    # source: standards.md "span loss from diagnostics": loss A->B = Tx(A) - Rx(B).
+    # Tx 1.000 mW = 0.000 dBm (SFF-8472 worked decode, verified); 0.5 mW = -3.010 dBm.
+    tx_batch, rx_batch = _two_ends([1.0, 0.5, 1.0], [-6.1, -9.0, None])
+    s = measure_span_loss(SPAN, tx_batch, rx_batch)
+    assert s.direction == "a->b" and s.taken_at == T0 + 2
+    assert s.lanes.tolist() == [1, 2, 3]
+    assert s.loss_db[0] == pytest.approx(6.1)
+    assert s.loss_db[1] == pytest.approx(-3.010 + 9.0, abs=1e-3)
+    assert np.isnan(s.loss_db[2])  # no light at B: no loss figure, never a number
+
+
+def test_measure_refuses_batches_from_the_wrong_devices():
+    tx_batch, rx_batch = _two_ends([1.0], [-6.0])
+    with pytest.raises(ValueError, match="expected batches from hgl-b and hgl-a"):
+        measure_span_loss(SPAN, tx_batch, rx_batch, "b->a")
+    with pytest.raises(ValueError, match="direction"):
+        measure_span_loss(SPAN, tx_batch, rx_batch, "sideways")
+
+
+def test_judging_uses_the_median_not_one_sample():
+    # Engineered 6.1 dB (worked example above); tolerance 1.5 dB.
+    samples = np.array([6.3, 6.0, 6.4, 12.0, 6.2, 6.1])  # one wild reading
+    v = judge_span_loss(samples, 6.1)
+    assert v.verdict == WITHIN_BUDGET and v.measured_db == pytest.approx(6.25)
+    hot = judge_span_loss(samples + 2.5, 6.1)
+    assert hot.verdict == EXCESS_LOSS and hot.excess_db == pytest.approx(2.65)
+    low = judge_span_loss(samples - 2.0, 6.1)
+    assert low.verdict == BELOW_BUDGET
+    few = judge_span_loss(np.array([9.0, np.nan, 9.1]), 6.1)
+    assert few.verdict == NOT_ENOUGH and few.samples == 2
+
+
+def test_growth_against_the_span_baseline():
+    base = np.array([6.2, 6.1, 6.3, 6.2])
+    recent = np.array([7.8, 7.6, 7.7, np.nan])
+    assert span_loss_growth(base, recent) == pytest.approx(1.5)
+    assert span_loss_growth(base, recent[:2]) is None
+
+
+def _optic(device, pmd, nm):
+    return OpticIdentity(device=device, port="et-1", pmd=pmd, wavelength_nm=nm)
+
+
+def test_matching_ends_raise_nothing():
+    assert check_link(_optic("a", "10GBASE-LR", 1310), _optic("b", "10GBASE-LR", 1310)) == []
+    # Unknown facts are not faults.
+    assert check_link(_optic("a", "", None), _optic("b", "10GBASE-LR", 1310)) == []
+
+
+def test_wavelength_and_pmd_mismatch():
+    issues = check_link(_optic("a", "10GBASE-LR", 1310), _optic("b", "10GBASE-SR", 850))
+    kinds = {i.kind: i.severity for i in issues}
+    assert kinds == {"pmd-mismatch": "warning", "wavelength-mismatch": "critical"}
+    assert "1310 vs 850 nm" in issues[1].text
+
+
+def test_bidi_pairs_must_be_complementary():
+    # source: standards.md "Rules of thumb" (common practice): BiDi optics work only as
+    # complementary pairs, e.g. 1310/1550 or 1270/1330 nm; same wavelength does not link.
+    up, down = _optic("a", "10GBASE-BR10-U", 1270), _optic("b", "10GBASE-BR10-D", 1330)
+    assert check_link(up, down) == []
+    assert (
+        check_link(_optic("a", "1000BASE-BX10-U", 1310), _optic("b", "1000BASE-BX10-D", 1550)) == []
+    )
+    same = check_link(_optic("a", "1000BASE-BX10-U", 1310), _optic("b", "1000BASE-BX10-U", 1310))
+    assert [i.kind for i in same] == ["bidi-same-wavelength"]
+    odd = check_link(_optic("a", "BIDI-20", 1310), _optic("b", "BIDI-20", 1610))
+    assert [i.kind for i in odd] == ["bidi-not-complementary"]
+    # Plant record says single fibre even though the PMD names are unknown.
+    forced = check_link(_optic("a", "", 1550), _optic("b", "", 1550), bidi=True)
+    assert [i.kind for i in forced] == ["bidi-same-wavelength"]

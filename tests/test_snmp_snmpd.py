@@ -27,9 +27,25 @@ PMD_NAMES = ("10GBASE-LR", "10GBASE-SR", "100GBASE-LR4", "100GBASE-LR", "100GBAS
 _LINE = re.compile(r'^\.?([\d.]+) = (?:(INTEGER|STRING|OID|Timeticks): )?"?(.*?)"?$')
 
 
+# Extra v3 users: (user, net-snmp auth, net-snmp priv, our auth name, our priv name)
+EXTRA_USERS = [
+    ("hgl-sha256-aes256", "SHA-256", "AES256", "SHA-256", "AES-256"),
+    ("hgl-sha512-aes192", "SHA-512", "AES192", "SHA-512", "AES-192"),
+    ("hgl-sha1-aes256", "SHA", "AES256", "SHA", "AES-256"),  # needs Blumenthal key extension
+    ("hgl-sha1-aes256c", "SHA", "AES256C", "SHA", "AES-256-C"),  # needs Reeder key extension
+    ("hgl-sha224-aes128", "SHA-224", "AES", "SHA-224", "AES-128"),
+    ("hgl-sha384-aes128", "SHA-384", "AES", "SHA-384", "AES-128"),
+]
+EXTRA_AUTH, EXTRA_PRIV = "hgl-extra-auth-key", "hgl-extra-priv-key"
+
+
 @pytest.fixture(scope="module")
 def agent(tmp_path_factory):
-    snmpd = start_snmpd(tmp_path_factory.mktemp("snmpd"))
+    extra = "".join(
+        f'createUser {user} {auth} "{EXTRA_AUTH}" {priv} "{EXTRA_PRIV}"\nrouser {user} priv\n'
+        for user, auth, priv, _, _ in EXTRA_USERS
+    )
+    snmpd = start_snmpd(tmp_path_factory.mktemp("snmpd"), extra)
     yield snmpd
     snmpd.stop()
 
@@ -143,6 +159,15 @@ def test_collector_agrees_with_net_snmp_cli(agent, version):
     assert_agrees(first, expected)
     assert_agrees(second, expected)
     assert first.batch.taken_at == 1_800_000_000.0
+
+
+@pytest.mark.parametrize(
+    ("user", "auth", "priv"), [(u, a, p) for u, _, _, a, p in EXTRA_USERS], ids=lambda x: x
+)
+def test_v3_protocol_combinations(agent, user, auth, priv):
+    # snmpd's createUser with the net-snmp names above; the collector's names must match them
+    (outcome,) = poll_once(agent, SnmpCredentials.v3(user, EXTRA_AUTH, EXTRA_PRIV, auth, priv))
+    assert len(outcome.batch) == 19
 
 
 def test_spot_values_from_the_dataset(agent):

@@ -193,14 +193,16 @@ def _extended(data: bytes, m: ModuleMap) -> None:
     m.serial = ascii_field(data, 68, 16, "serial number (A0h 68-83)", m.problems)
     diag = data[92]
     m.diagnostics = bool(diag & 0x40)
+    check(m, "CC_EXT", data, 64, 95, 95)
+    if not m.diagnostics:
+        return  # without diagnostics the type and calibration bits mean nothing
     m.rx_power_type = "average" if diag & 0x08 else "oma"
     internal, external = bool(diag & 0x20), bool(diag & 0x10)
     if internal and external:
         m.problems.append("A0h byte 92 declares both internal and external calibration")
-    elif m.diagnostics and not (internal or external):
+    elif not (internal or external):
         m.problems.append("A0h byte 92 declares no calibration mode; assuming internal")
     m.calibration = "external" if external and not internal else "internal"
-    check(m, "CC_EXT", data, 64, 95, 95)
 
 
 def _threshold_block(

@@ -43,9 +43,9 @@ RESOLVE = "resolve"
 PENDING = "pending"  # condition seen, open hold running, nothing sent yet
 FIRING = "firing"  # open sent, condition present
 CLEARING = "clearing"  # open sent, condition gone, resolve hold running
-STALE_ = "stale"  # open sent, device stopped answering
+STALE_PHASE = "stale"  # open sent, device stopped answering
 STALE_CLEARING = "stale-clearing"  # device back after stale with the condition gone
-PHASES = frozenset({PENDING, FIRING, CLEARING, STALE_, STALE_CLEARING})
+PHASES = frozenset({PENDING, FIRING, CLEARING, STALE_PHASE, STALE_CLEARING})
 
 ALERTNAMES: dict[Condition, str] = {
     Condition.NEAR_OVERLOAD: "OpticRxNearOverload",
@@ -57,8 +57,9 @@ ALERTNAMES: dict[Condition, str] = {
     Condition.ALARM: "OpticThresholdAlarm",
 }
 
+_SEVERITY = np.array([Condition(c).severity for c in range(len(Condition))], dtype=np.int8)
 #: Conditions that raise an alert: severity warning (2) or critical (3).
-_ALERTING = np.array([Condition(c).severity >= 2 for c in range(len(Condition))], dtype=bool)
+_ALERTING = _SEVERITY >= 2
 
 #: Default update steps: how far a value (or its margin) must move, in the quantity's
 #: unit, before an open alert is worth an update. Power in dB; the others are our
@@ -259,8 +260,11 @@ class LifecycleState:
         if not isinstance(tracks, Mapping):
             raise ValueError(f"{where}: 'tracks' must be a mapping")
         for key, raw in tracks.items():
-            state.add(str(key), _track_from_dict(f"{where}: tracks[{key!r}]", raw))
-            state.sequences.setdefault(str(key), 0)
+            track = _track_from_dict(f"{where}: tracks[{key!r}]", raw)
+            state.add(str(key), track)
+            # Never hand out a sequence the receiver has already seen for this key.
+            sent = 0 if track.last is None else track.last.sequence
+            state.sequences[str(key)] = max(state.sequences.get(str(key), 0), sent)
         return state
 
 
@@ -341,14 +345,15 @@ class AlertLifecycle:
         if cond.size and (cond.min() < 0 or cond.max() >= len(Condition)):
             raise ValueError(f"lifecycle for {batch.device}: condition codes out of range")
         alerting = _ALERTING[cond]
+        severity = _SEVERITY[cond]
         device = batch.device
         tracked = self.state.keys_for(device)
-        rows = range(len(batch)) if tracked else np.flatnonzero(alerting)
+        rows = np.flatnonzero(alerting | _tracked_rows(batch, tracked) if tracked else alerting)
         row_of: dict[str, int] = {}
         for i in rows:
             key = _row_key(batch, int(i))
             j = row_of.get(key)
-            if j is None or Condition(cond[i]).severity > Condition(cond[j]).severity:
+            if j is None or severity[i] > severity[j]:
                 row_of[key] = int(i)
         events: list[AlertEvent] = []
         for key, i in row_of.items():
@@ -372,10 +377,10 @@ class AlertLifecycle:
             if track.phase == PENDING:
                 self.state.drop(key)
                 continue
-            if track.phase == STALE_:
+            if track.phase == STALE_PHASE:
                 continue
             was_stale = track.phase == STALE_CLEARING
-            track.phase = STALE_
+            track.phase = STALE_PHASE
             track.clear_since = None  # a clear run must be continuous observations
             if was_stale:
                 continue
@@ -403,30 +408,26 @@ class AlertLifecycle:
         context: Mapping[tuple[str, int, Quantity], AdviceContext] | None,
         events: list[AlertEvent],
     ) -> None:
-        batch = assessment.batch
-        quantity = Quantity(int(batch.quantity[i]))
-        lane = int(batch.lane[i])
-        policy = self.config.policy(quantity, lane)
-        condition = int(assessment.condition[i])
+        f = _facts(assessment, i)
+        device = assessment.batch.device
+        policy = self.config.policy(f.quantity, f.lane)
         track = self.state.tracks.get(key)
         if track is None:
-            track = Track(batch.device, PENDING, condition, now)
+            track = Track(device, PENDING, int(f.condition), now)
             self.state.add(key, track)
         if track.phase == PENDING:
-            track.condition = condition
+            track.condition = int(f.condition)
             if now - track.since >= policy.open_hold_s:
-                event = self._event(OPEN, key, i, assessment, now, track.since, context)
+                event = self._event(OPEN, key, f, device, now, track.since, context)
                 track.phase, track.last = FIRING, event
                 events.append(event)
             return
-        was_stale = track.phase in (STALE_, STALE_CLEARING)
-        track.phase, track.clear_since, track.condition = FIRING, None, condition
-        event = self._event(UPDATE, key, i, assessment, now, track.since, context, sequence=0)
+        was_stale = track.phase in (STALE_PHASE, STALE_CLEARING)
+        track.phase, track.clear_since, track.condition = FIRING, None, int(f.condition)
         assert track.last is not None
-        if was_stale or _material(track.last, event, policy.update_step):
-            event = replace(event, sequence=self.state.next_sequence(key))
-            track.last = event
-            events.append(event)
+        if was_stale or _material(track.last, f, policy.update_step):
+            track.last = self._event(UPDATE, key, f, device, now, track.since, context)
+            events.append(track.last)
 
     def _clear(
         self, key: str, i: int | None, assessment: Assessment, now: float, events: list[AlertEvent]
@@ -437,7 +438,7 @@ class AlertLifecycle:
             return
         if track.clear_since is None:
             track.clear_since = now
-            track.phase = STALE_CLEARING if track.phase == STALE_ else CLEARING
+            track.phase = STALE_CLEARING if track.phase == STALE_PHASE else CLEARING
         assert track.last is not None
         last = track.last
         policy = self.config.policy(_BY_LABEL[last.quantity], last.lane)
@@ -472,58 +473,104 @@ class AlertLifecycle:
         self,
         kind: str,
         key: str,
-        i: int,
-        a: Assessment,
+        f: _Facts,
+        device: str,
         now: float,
         starts_at: float,
         context: Mapping[tuple[str, int, Quantity], AdviceContext] | None,
-        sequence: int | None = None,
     ) -> AlertEvent:
-        batch = a.batch
-        optic = batch.optics[int(batch.optic[i])]
-        quantity = Quantity(int(batch.quantity[i]))
-        lane = int(batch.lane[i])
-        condition = Condition(int(a.condition[i]))
-        value = _opt(float(batch.value[i]))
-        low, high = float(a.low_edge[i]), float(a.high_edge[i])
-        edge_name, edge_value, margin = _edge(condition, quantity, value, a, i)
-        ctx = context.get((optic.port, lane, quantity)) if context else None
+        ctx = context.get((f.port, f.lane, f.quantity)) if context else None
         words = advise(
-            condition,
-            quantity,
-            math.nan if value is None else value,
-            low_edge=low,
-            high_edge=high,
+            f.condition,
+            f.quantity,
+            math.nan if f.value is None else f.value,
+            low_edge=f.low,
+            high_edge=f.high,
             context=ctx,
             targets=self.config.targets,
         )
-        source = WindowSource(int(a.window_source[i])).word
         return AlertEvent(
             kind=kind,
             key=key,
-            sequence=self.state.next_sequence(key) if sequence is None else sequence,
-            alertname=ALERTNAMES[condition],
-            severity=SEVERITY_WORDS[condition.severity],
-            device=batch.device,
-            port=optic.port,
-            lane=lane,
-            quantity=quantity.label,
-            condition=condition.word,
-            value=value,
-            unit=quantity.unit,
-            edge_name=edge_name,
-            edge_value=edge_value,
-            window_source=source,
-            margin_db=margin,
+            sequence=self.state.next_sequence(key),
+            alertname=ALERTNAMES[f.condition],
+            severity=SEVERITY_WORDS[f.condition.severity],
+            device=device,
+            port=f.port,
+            lane=f.lane,
+            quantity=f.quantity.label,
+            condition=f.condition.word,
+            value=f.value,
+            unit=f.quantity.unit,
+            edge_name=f.edge_name,
+            edge_value=f.edge_value,
+            window_source=f.source,
+            margin_db=f.margin,
             rate_per_day=None if ctx is None else ctx.rate_per_day,
             summary=summarize(
-                condition, quantity, optic.port, lane, value, edge_name, edge_value, source
+                f.condition,
+                f.quantity,
+                f.port,
+                f.lane,
+                f.value,
+                f.edge_name,
+                f.edge_value,
+                f.source,
             ),
             advice=words.text,
             caution=words.caution,
             starts_at=starts_at,
             at=now,
         )
+
+
+@dataclass(slots=True, frozen=True)
+class _Facts:
+    """The numbers of one alerting row; cheap to compare before any words are written."""
+
+    condition: Condition
+    quantity: Quantity
+    port: str
+    lane: int
+    value: float | None
+    low: float
+    high: float
+    edge_name: str
+    edge_value: float | None
+    margin: float | None
+    source: str
+
+
+def _facts(a: Assessment, i: int) -> _Facts:
+    batch = a.batch
+    quantity = Quantity(int(batch.quantity[i]))
+    condition = Condition(int(a.condition[i]))
+    value = _opt(float(batch.value[i]))
+    edge_name, edge_value, margin = _edge(condition, quantity, value, a, i)
+    return _Facts(
+        condition=condition,
+        quantity=quantity,
+        port=batch.optics[int(batch.optic[i])].port,
+        lane=int(batch.lane[i]),
+        value=value,
+        low=float(a.low_edge[i]),
+        high=float(a.high_edge[i]),
+        edge_name=edge_name,
+        edge_value=edge_value,
+        margin=margin,
+        source=WindowSource(int(a.window_source[i])).word,
+    )
+
+
+def _unescape(part: str) -> str:
+    return part.replace("%7C", "|").replace("%25", "%")
+
+
+def _tracked_rows(batch: ReadingBatch, keys: set[str]) -> np.ndarray:
+    """Rows of the batch on ports that have a track: the only healthy rows worth a key."""
+    ports = {_unescape(k.split("|")[1]) for k in keys}
+    optics = [n for n, o in enumerate(batch.optics) if o.port in ports]
+    return np.isin(batch.optic, optics)
 
 
 def _row_key(batch: ReadingBatch, i: int) -> str:
@@ -578,17 +625,17 @@ def _edge(
 _STEP_SLACK = 1e-9
 
 
-def _material(last: AlertEvent, new: AlertEvent, step: float) -> bool:
+def _material(last: AlertEvent, new: _Facts, step: float) -> bool:
     """Is ``new`` different enough from what the receiver last heard to send it?"""
     if (last.condition, last.edge_name, last.window_source) != (
-        new.condition,
+        new.condition.word,
         new.edge_name,
-        new.window_source,
+        new.source,
     ):
         return True
     for old, cur in (
         (last.value, new.value),
-        (last.margin_db, new.margin_db),
+        (last.margin_db, new.margin),
         (last.edge_value, new.edge_value),
     ):
         if (old is None) != (cur is None):

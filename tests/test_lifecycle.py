@@ -337,3 +337,14 @@ def test_context_adds_rate_and_history_to_the_advice():
     assert ev.rate_per_day == -0.02
     assert ev.edge_name == "sensitivity" and ev.margin_db == pytest.approx(2.3)
     assert "grown 2.0 dB" in ev.advice and ev.caution == LASER_CAUTION
+
+
+def test_restore_without_counters_never_reuses_a_sent_sequence():
+    live = AlertLifecycle()
+    live.observe(rx_assessment(-1.8, NEAR, T0), T0)
+    live.observe(rx_assessment(-0.5, Condition.OVERLOADED, T0 + 60), T0 + 60)  # update, seq 2
+    data = json.loads(json.dumps(live.snapshot()))
+    data["sequences"] = {}  # e.g. an older row written before the counters were stored
+    restored = AlertLifecycle.restore(data)
+    (ev,) = restored.mark_stale(DEVICE, T0 + 120)
+    assert ev.sequence == 3

@@ -197,8 +197,9 @@ def assess(
     note(unjudged, NO_WINDOW_NOTE)
     win_notes = np.array([bool(w.note) for w in windows], dtype=bool)
     if win_notes.any():
-        for k in np.nonzero(win_notes)[0].tolist():
-            note(row_win == k, windows[k].note)
+        rows = np.nonzero(win_notes[row_win])[0]
+        for r, k in zip(rows.tolist(), row_win[rows].tolist(), strict=True):
+            notes.setdefault(r, []).append(windows[k].note)
 
     if tracker is not None and n:
         condition = tracker.update_batch(batch, instant, strict, now)

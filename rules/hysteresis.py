@@ -59,7 +59,7 @@ _WORSE, _BETTER, _TO_UNKNOWN = 1, -1, 2
 
 
 @dataclass(slots=True, frozen=True)
-class HoldPolicy:
+class HysteresisPolicy:
     """How long a change must hold, and how far back past an edge a value must come."""
 
     hold_s: float = 120.0
@@ -116,7 +116,7 @@ def step(
     instant: np.ndarray,
     strict: np.ndarray,
     now: float,
-    policy: HoldPolicy,
+    policy: HysteresisPolicy,
 ) -> TrackState:
     """The next state, given each row's instant and strict condition at time ``now``.
 
@@ -191,8 +191,8 @@ class ConditionTracker:
 
     __slots__ = ("_identity", "_keys", "_last_seen", "_layouts", "_size", "_state", "policy")
 
-    def __init__(self, policy: HoldPolicy | None = None, capacity: int = 1024) -> None:
-        self.policy = policy or HoldPolicy()
+    def __init__(self, policy: HysteresisPolicy | None = None, capacity: int = 1024) -> None:
+        self.policy = policy or HysteresisPolicy()
         self._keys: dict[RowKey, int] = {}
         self._identity: list[str] = []
         self._state = TrackState.empty(capacity)

@@ -211,12 +211,16 @@ class OverrideIndex:
             return ()
         device = optic.device.casefold()
         part = optic.part_number.strip().casefold()
-        candidates = [
-            *self._by_port.get(optic.port.casefold(), ()),
-            *(self._by_part.get(part, ()) if part else ()),
-            *self._by_device.get(device, ()),
-            *self._site,
-        ]
+        candidates: list[int] = []
+        if self._by_port:
+            candidates.extend(self._by_port.get(optic.port.casefold(), ()))
+        if self._by_part and part:
+            candidates.extend(self._by_part.get(part, ()))
+        if self._by_device:
+            candidates.extend(self._by_device.get(device, ()))
+        candidates.extend(self._site)
+        if not candidates:
+            return ()
         found = []
         for i in candidates:
             o = self.overrides[i]
@@ -414,7 +418,9 @@ class WindowResolver:
         key = (
             optic.pmd,
             optic.rx_power_type,
-            tuple(sorted((int(q), t) for q, t in optic.thresholds.items())),
+            # The collector fills thresholds in a fixed order, so no sort is needed; a
+            # different order only costs a duplicate entry.
+            tuple(optic.thresholds.items()),
             matched,
         )
         try:

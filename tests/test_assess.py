@@ -24,7 +24,7 @@ from lightwarden.collector.readings import (
 from lightwarden.rules.assess import ADMIN_DOWN_NOTE, NO_WINDOW_NOTE, MarginTargets, assess
 from lightwarden.rules.catalogue import default_catalogue
 from lightwarden.rules.findings import Condition, WindowSource
-from lightwarden.rules.hysteresis import ConditionTracker, HoldPolicy
+from lightwarden.rules.hysteresis import ConditionTracker, HysteresisPolicy
 from lightwarden.rules.windows import OMA_NOTE, WindowOverride, WindowResolver
 
 RX, TX = Quantity.RX_POWER, Quantity.TX_POWER
@@ -281,7 +281,7 @@ def test_margin_invariants(value, pad):
 
 
 def test_with_tracker_condition_lags_instant():
-    policy = HoldPolicy(hold_s=120.0, clear_hold_s=300.0)
+    policy = HysteresisPolicy(hold_s=120.0, clear_hold_s=300.0)
     tracker = ConditionTracker(policy)
     first = assess(rx_batch([-5.0], taken_at=0.0), tracker=tracker)
     assert first.condition[0] == C.HEALTHY

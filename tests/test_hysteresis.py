@@ -20,7 +20,7 @@ from lightwarden.rules.findings import Condition
 from lightwarden.rules.hysteresis import (
     NO_CONDITION,
     ConditionTracker,
-    HoldPolicy,
+    HysteresisPolicy,
     TrackState,
     step,
 )
@@ -59,7 +59,7 @@ def changes(history):
 
 def test_hovering_around_a_target_changes_at_most_once_per_hold():
     # +-0.2 dB around sensitivity + 3 dB, a sample every 10 s for an hour of virtual time
-    policy = HoldPolicy()
+    policy = HysteresisPolicy()
     tracker = ConditionTracker(policy)
     samples = [(float(t), NEAR_EDGE + (0.2 if (t // 10) % 2 else -0.2))
                for t in range(0, 3600, 10)]
@@ -73,7 +73,7 @@ def test_hovering_around_a_target_changes_at_most_once_per_hold():
 
 def test_random_noise_around_an_edge_never_flaps():
     rng = np.random.default_rng(3)
-    policy = HoldPolicy(hold_s=60.0, clear_hold_s=120.0)
+    policy = HysteresisPolicy(hold_s=60.0, clear_hold_s=120.0)
     tracker = ConditionTracker(policy)
     samples = [(float(t), NEAR_EDGE + float(rng.uniform(-0.4, 0.4))) for t in range(0, 3600, 10)]
     history = run(tracker, samples)
@@ -94,7 +94,7 @@ def test_random_noise_around_an_edge_never_flaps():
 def test_changes_are_spaced_by_at_least_the_hold(offsets, hold):
     # Except for DARK (immediate), every change waits its hold: the gap between two
     # changes is at least the shorter of the two holds.
-    policy = HoldPolicy(hold_s=hold, clear_hold_s=hold * 2)
+    policy = HysteresisPolicy(hold_s=hold, clear_hold_s=hold * 2)
     tracker = ConditionTracker(policy)
     history = run(tracker, [(i * 10.0, NEAR_EDGE + off) for i, off in enumerate(offsets)])
     times = [t for t, _ in changes(history)]
@@ -102,7 +102,7 @@ def test_changes_are_spaced_by_at_least_the_hold(offsets, hold):
 
 
 def test_a_real_crossing_is_adopted_after_the_hold():
-    policy = HoldPolicy(hold_s=120.0, clear_hold_s=300.0)
+    policy = HysteresisPolicy(hold_s=120.0, clear_hold_s=300.0)
     tracker = ConditionTracker(policy)
     healthy = SENS + 6.0
     near = SENS + 2.0
@@ -112,7 +112,7 @@ def test_a_real_crossing_is_adopted_after_the_hold():
 
 
 def test_clearing_needs_hysteresis_and_the_clear_hold():
-    policy = HoldPolicy(hold_s=60.0, clear_hold_s=300.0, hysteresis_db=0.5)
+    policy = HysteresisPolicy(hold_s=60.0, clear_hold_s=300.0, hysteresis_db=0.5)
     tracker = ConditionTracker(policy)
     run(tracker, [(0.0, SENS + 2.0)])  # first sample adopted at once
     assert tracker.get(KEY).condition is C.NEAR_SENSITIVITY
@@ -127,7 +127,7 @@ def test_clearing_needs_hysteresis_and_the_clear_hold():
 def test_improvement_steps_to_what_the_value_supports():
     # From below sensitivity to 3.2 dB above it: the strict judgement (target + 0.5 dB)
     # only supports near-sensitivity, so that is where it clears to.
-    tracker = ConditionTracker(HoldPolicy(hold_s=60.0, clear_hold_s=120.0))
+    tracker = ConditionTracker(HysteresisPolicy(hold_s=60.0, clear_hold_s=120.0))
     run(tracker, [(0.0, SENS - 1.0)])
     assert tracker.get(KEY).condition is C.BELOW_SENSITIVITY
     history = run(tracker, [(float(t), SENS + 3.2) for t in range(10, 400, 10)])
@@ -135,7 +135,7 @@ def test_improvement_steps_to_what_the_value_supports():
 
 
 def test_sliding_worse_adopts_what_held_then_needs_another_hold():
-    tracker = ConditionTracker(HoldPolicy(hold_s=120.0, clear_hold_s=300.0))
+    tracker = ConditionTracker(HysteresisPolicy(hold_s=120.0, clear_hold_s=300.0))
     samples = [(0.0, SENS + 6.0), (10.0, SENS + 2.0), (40.0, SENS - 1.0)]
     samples += [(float(t), SENS - 1.0) for t in range(50, 500, 10)]
     history = run(tracker, samples)
@@ -145,7 +145,7 @@ def test_sliding_worse_adopts_what_held_then_needs_another_hold():
 
 
 def test_dark_is_immediate_and_clears_only_after_the_clear_hold():
-    tracker = ConditionTracker(HoldPolicy(hold_s=120.0, clear_hold_s=300.0))
+    tracker = ConditionTracker(HysteresisPolicy(hold_s=120.0, clear_hold_s=300.0))
     run(tracker, [(0.0, -5.0)])
     assert poll(tracker, 60.0, None) is C.DARK
     # Light flapping on and off keeps it DARK.
@@ -156,7 +156,7 @@ def test_dark_is_immediate_and_clears_only_after_the_clear_hold():
 
 
 def test_a_single_missing_reading_does_not_resolve_a_problem():
-    tracker = ConditionTracker(HoldPolicy(hold_s=120.0, clear_hold_s=300.0))
+    tracker = ConditionTracker(HysteresisPolicy(hold_s=120.0, clear_hold_s=300.0))
     run(tracker, [(0.0, SENS - 2.0)])
     assert poll(tracker, 60.0, None, status=ReadingStatus.UNAVAILABLE) is C.BELOW_SENSITIVITY
     assert poll(tracker, 120.0, SENS - 2.0) is C.BELOW_SENSITIVITY
@@ -167,14 +167,14 @@ def test_a_single_missing_reading_does_not_resolve_a_problem():
 
 
 def test_a_swapped_module_starts_afresh():
-    tracker = ConditionTracker(HoldPolicy(hold_s=120.0, clear_hold_s=300.0))
+    tracker = ConditionTracker(HysteresisPolicy(hold_s=120.0, clear_hold_s=300.0))
     run(tracker, [(0.0, SENS - 2.0)])
     assert poll(tracker, 60.0, -5.0, serial="HG0001") is C.BELOW_SENSITIVITY
     assert poll(tracker, 120.0, -5.0, serial="HG0777") is C.HEALTHY  # new serial, new row
 
 
 def test_zero_holds_follow_the_instant_condition_when_worsening():
-    tracker = ConditionTracker(HoldPolicy(hold_s=0.0, clear_hold_s=0.0, hysteresis_db=0.0))
+    tracker = ConditionTracker(HysteresisPolicy(hold_s=0.0, clear_hold_s=0.0, hysteresis_db=0.0))
     values = [-5.0, SENS + 2.0, SENS - 1.0, -5.0, 0.2]
     history = run(tracker, [(float(i), v) for i, v in enumerate(values)])
     assert [c for _, c in history] == [C.HEALTHY, C.NEAR_SENSITIVITY, C.BELOW_SENSITIVITY,
@@ -183,7 +183,7 @@ def test_zero_holds_follow_the_instant_condition_when_worsening():
 
 def test_step_is_pure_and_columnar():
     state = TrackState.empty(3)
-    policy = HoldPolicy(hold_s=60.0, clear_hold_s=60.0)
+    policy = HysteresisPolicy(hold_s=60.0, clear_hold_s=60.0)
     instant = np.array([C.HEALTHY, C.NEAR_OVERLOAD, C.DARK], dtype=np.int8)
     s1 = step(state, instant, instant, 0.0, policy)
     assert (state.condition == NO_CONDITION).all()  # input untouched
@@ -199,7 +199,7 @@ def test_step_is_pure_and_columnar():
 
 def test_step_rejects_strict_better_than_instant_by_construction():
     # strict better than instant cannot make a row improve past what instant shows.
-    policy = HoldPolicy(hold_s=0.0, clear_hold_s=0.0)
+    policy = HysteresisPolicy(hold_s=0.0, clear_hold_s=0.0)
     s = step(TrackState.empty(1), np.array([C.ALARM], np.int8), np.array([C.ALARM], np.int8),
              0.0, policy)
     s = step(s, np.array([C.ALARM], np.int8), np.array([C.HEALTHY], np.int8), 1.0, policy)
@@ -207,7 +207,7 @@ def test_step_rejects_strict_better_than_instant_by_construction():
 
 
 def test_many_rows_in_one_update_are_independent():
-    tracker = ConditionTracker(HoldPolicy(hold_s=60.0, clear_hold_s=60.0), capacity=2)
+    tracker = ConditionTracker(HysteresisPolicy(hold_s=60.0, clear_hold_s=60.0), capacity=2)
     keys = [("harrow-core-1", f"eth1/{i}", 1, int(RX)) for i in range(50)]
     healthy = np.zeros(50, dtype=np.int8)
     tracker.update(keys, healthy, healthy, 0.0)
@@ -234,4 +234,4 @@ def test_prune_forgets_rows_not_seen():
 
 def test_policy_validation():
     with pytest.raises(ValueError, match="hold_s"):
-        HoldPolicy(hold_s=-1.0)
+        HysteresisPolicy(hold_s=-1.0)

@@ -24,6 +24,7 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 
 import numpy as np
+
 from lightwarden.collector.readings import Quantity, ReadingBatch, ReadingStatus
 from lightwarden.rules.catalogue import Catalogue, default_catalogue
 from lightwarden.rules.findings import Assessment, Condition, WindowSource

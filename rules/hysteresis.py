@@ -41,6 +41,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
+
 from lightwarden.collector.readings import Quantity, ReadingBatch
 from lightwarden.rules.findings import Condition
 

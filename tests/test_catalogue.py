@@ -10,6 +10,7 @@ from __future__ import annotations
 from dataclasses import fields
 
 import pytest
+
 from lightwarden.rules.catalogue import (
     COLUMNS,
     Catalogue,

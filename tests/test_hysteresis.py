@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+
 from lightwarden.collector.readings import BatchBuilder, OpticIdentity, Quantity, ReadingStatus
 from lightwarden.rules.assess import assess
 from lightwarden.rules.catalogue import default_catalogue

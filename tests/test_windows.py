@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 
 import pytest
+
 from lightwarden.collector.readings import OpticIdentity, Quantity, Thresholds
 from lightwarden.rules.catalogue import default_catalogue
 from lightwarden.rules.findings import WindowSource

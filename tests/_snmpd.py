@@ -89,18 +89,33 @@ class SnmpdAgent:
         self.process = None
 
 
-def start_snmpd(workdir: Path, extra_config: str = "") -> SnmpdAgent:
-    """Write the config, start snmpd in the foreground, wait until it answers."""
+def start_snmpd(
+    workdir: Path,
+    extra_config: str = "",
+    *,
+    like: SnmpdAgent | None = None,
+    replace: dict[str, str] | None = None,
+) -> SnmpdAgent:
+    """Write the config, start snmpd in the foreground, wait until it answers.
+
+    ``like`` reuses another (stopped) agent's port and credentials, to play a restart;
+    ``replace`` edits the dataset text (old line -> new line) to play a changed device.
+    """
     snmpd = require_binary(SNMPD)
     require_binary("snmpget")
     agent = SnmpdAgent(
-        port=free_udp_port(),
-        community="hgl-" + secrets.token_hex(6),
+        port=like.port if like else free_udp_port(),
+        community=like.community if like else "hgl-" + secrets.token_hex(6),
         v3user="hgl-poller",
-        authkey="auth-" + secrets.token_hex(8),
-        privkey="priv-" + secrets.token_hex(8),
+        authkey=like.authkey if like else "auth-" + secrets.token_hex(8),
+        privkey=like.privkey if like else "priv-" + secrets.token_hex(8),
         workdir=workdir,
     )
+    dataset = (FIXTURES / "dataset.conf").read_text()
+    for old, new in (replace or {}).items():
+        if old not in dataset:
+            raise ValueError(f"dataset.conf has no line {old!r} to replace")
+        dataset = dataset.replace(old, new)
     header = Template((FIXTURES / "snmpd.conf.in").read_text()).substitute(
         port=agent.port,
         community=agent.community,
@@ -108,8 +123,9 @@ def start_snmpd(workdir: Path, extra_config: str = "") -> SnmpdAgent:
         authkey=agent.authkey,
         privkey=agent.privkey,
     )
+    workdir.mkdir(parents=True, exist_ok=True)
     conf = workdir / "snmpd.conf"
-    conf.write_text(header + "\n" + (FIXTURES / "dataset.conf").read_text() + extra_config)
+    conf.write_text(header + "\n" + dataset + extra_config)
     persistent = workdir / "persist"
     persistent.mkdir(exist_ok=True)
     log = workdir / "snmpd.log"

@@ -20,6 +20,7 @@ from pathlib import Path
 from typing import Any
 
 import yaml
+
 from lightwarden.rules.advice import DEFAULT_TARGETS, LASER_CAUTION
 
 HEADER = (

@@ -49,6 +49,10 @@ def to_alertmanager(
         annotations["stale"] = stale_note(event)
     if event.kind == "resolve":
         ends = event.ends_at if event.ends_at is not None else (event.at or now)
+        # An endsAt still in Alertmanager's future does not resolve: it merges with the
+        # open alert and the later endsAt of our last re-send wins, so the alert would
+        # linger minutes. Never send a resolve later than the moment of sending.
+        ends = min(ends, now)
     else:
         ends = now + EXPIRY_INTERVALS * resend_interval_s
     # Alertmanager rejects endsAt before startsAt.

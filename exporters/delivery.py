@@ -124,13 +124,27 @@ class Dispatcher:
             check_event(ev)
         if not batch:
             return 0
+        every = [w.sender.destination.name for w in self._workers]
+        am = [
+            w.sender.destination.name
+            for w in self._workers
+            if w.sender.destination.kind == "alertmanager"
+        ]
         with self._lock:
             # Outbox write and open-set change happen together so a worker's snapshot of
             # open alerts is never ahead of or behind what the outbox will deliver.
-            added = self._outbox.put_many(batch, [w.sender.destination.name for w in self._workers])
-            if self._apply_open(batch):
+            opened = dict(self._open)
+            routed: list[tuple[AlertEvent, list[str]]] = []
+            for ev in batch:
+                retired = _apply_open(opened, ev)
+                if retired is not None and am:
+                    routed.append((retired, am))
+                routed.append((ev, every))
+            added = self._outbox.put_routed(routed)
+            if opened != self._open:
+                self._open = opened
                 self._outbox.save_state(
-                    OPEN_STATE_NAME, {k: event_to_dict(e) for k, e in self._open.items()}
+                    OPEN_STATE_NAME, {k: event_to_dict(e) for k, e in opened.items()}
                 )
         for w in self._workers:
             w.wake.set()
@@ -290,20 +304,6 @@ class Dispatcher:
 
     # -- open-alert state ------------------------------------------------------------
 
-    def _apply_open(self, events: Sequence[AlertEvent]) -> bool:
-        changed = False
-        for ev in events:
-            cur = self._open.get(ev.key)
-            if cur is not None and ev.sequence < cur.sequence:
-                continue  # a late, older step must not roll the alert back
-            if ev.kind in _OPEN_KINDS:
-                self._open[ev.key] = ev
-                changed = True
-            elif cur is not None:
-                del self._open[ev.key]
-                changed = True
-        return changed
-
     def _load_open(self) -> dict[str, AlertEvent]:
         state = self._outbox.load_state(OPEN_STATE_NAME) or {}
         out = {}
@@ -313,3 +313,33 @@ class Dispatcher:
             except Exception as exc:
                 log.error("ignoring unreadable open alert %r in outbox state: %s", key, exc)
         return out
+
+
+def _apply_open(opened: dict[str, AlertEvent], ev: AlertEvent) -> AlertEvent | None:
+    """Apply ``ev`` to the open set; return a resolve for the label set it replaces, if any.
+
+    The lifecycle keeps one key per (device, port, lane, quantity) while the condition, and
+    so the alertname and severity, may change (near overload -> overloaded). Alertmanager
+    identifies alerts by labels, so the old label set must be resolved explicitly or it
+    would linger until its endsAt.
+    """
+    cur = opened.get(ev.key)
+    if cur is not None and ev.sequence < cur.sequence:
+        return None  # a late, older step must not roll the alert back
+    if ev.kind not in _OPEN_KINDS:
+        opened.pop(ev.key, None)
+        return None
+    opened[ev.key] = ev
+    if cur is None or (cur.alertname, cur.severity) == (ev.alertname, ev.severity):
+        return None
+    return dataclasses.replace(
+        cur,
+        kind="resolve",
+        key=f"{ev.key}#retired:{cur.alertname}:{cur.severity}",
+        sequence=ev.sequence,
+        ends_at=ev.at,
+        at=ev.at,
+        summary=f"Superseded by {ev.alertname}: {ev.summary}",
+        advice="",
+        caution="",
+    )

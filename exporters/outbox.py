@@ -158,14 +158,18 @@ class Outbox:
         return self.put_many([event], destinations)
 
     def put_many(self, events: Sequence[AlertEvent], destinations: Iterable[str]) -> int:
-        """Queue several events in one transaction (all or nothing)."""
+        """Queue several events for the same destinations in one transaction."""
         dests = list(destinations)
-        for ev in events:
+        return self.put_routed([(ev, dests) for ev in events])
+
+    def put_routed(self, routed: Sequence[tuple[AlertEvent, Sequence[str]]]) -> int:
+        """Queue each event for its own destinations, in order, all or nothing."""
+        for ev, _ in routed:
             check_event(ev)
         now = self._clock()
         added = 0
         with self._lock, self._tx():
-            for ev in events:
+            for ev, dests in routed:
                 body = json.dumps(event_to_dict(ev), allow_nan=False, sort_keys=True)
                 for dest in dests:
                     done = self._db.execute(

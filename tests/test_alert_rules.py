@@ -12,6 +12,7 @@ from pathlib import Path
 import pytest
 import yaml
 from _procs import require_binary, run
+
 from lightwarden.exporters.alert_rules import RuleParams, main, render_rules
 
 DEPLOY = Path(__file__).resolve().parent.parent / "deploy" / "prometheus"

@@ -16,6 +16,7 @@ from datetime import datetime
 import pytest
 from _alert_helpers import Receiver, make_event
 from _procs import LOOPBACK, require_binary, start_on_free_port, wait_for
+
 from lightwarden.exporters.alert_http import AlertDestination, RetryPolicy
 from lightwarden.exporters.delivery import Dispatcher
 from lightwarden.exporters.outbox import Outbox
@@ -208,3 +209,35 @@ def test_outage_keeps_events_until_alertmanager_answers(tmp_path, hook):
         wait_for(lambda: not d.backlog(), 30, "the queued event to be delivered")
         assert len(ours(am_alerts(base))) == 1, proc.log_tail()
         d.stop(1.0)
+
+
+def test_condition_change_retires_old_label_set(tmp_path, alertmanager):
+    """One lifecycle key moves from near-overload to overloaded: the alertname label
+    changes, so the old label set must be resolved rather than left to expire."""
+    base, _ = alertmanager
+    d = make_dispatcher(tmp_path, "a", base)
+    d.start()
+    now = time.time()
+    d.submit([make_event("open", 1, at=now)])
+    wait_for(lambda: ours(am_alerts(base)), 20, "the first alert")
+    d.submit(
+        [
+            make_event(
+                "update",
+                2,
+                at=now + 1,
+                alertname="OpticRxOverloaded",
+                severity="critical",
+                condition="overloaded",
+                value=0.8,
+                margin_db=-0.3,
+            )
+        ]
+    )
+
+    def active_names() -> list[str]:
+        return sorted(a["labels"]["alertname"] for a in ours(am_alerts(base)))
+
+    wait_for(lambda: active_names() == ["OpticRxOverloaded"], 20, "only the new alertname")
+    assert [e.alertname for e in d.open_alerts()] == ["OpticRxOverloaded"]
+    d.stop(1.0)

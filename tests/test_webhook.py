@@ -12,6 +12,7 @@ import time
 import pytest
 from _alert_helpers import Receiver, make_event
 from _procs import wait_for
+
 from lightwarden.exporters.alert_http import AlertDestination, RetryPolicy, redact_url
 from lightwarden.exporters.delivery import Dispatcher
 from lightwarden.exporters.outbox import Outbox

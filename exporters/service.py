@@ -1,0 +1,266 @@
+"""The composition root: wires a site config to sources, the rule layer and the exporters.
+
+``Monitor`` owns one of each long-lived part (window resolver, condition tracker, alert
+lifecycle, exposition cache, dispatcher) and handles every poll outcome the same way,
+whether it came from the schedule (`run`, `demo`) or from a single sweep (`check`).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import logging
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+from lightwarden.collector.platforms.platform import PlatformError, load_platform
+from lightwarden.collector.readings import PollOutcome, Quantity
+from lightwarden.collector.schedule import PollScheduler
+from lightwarden.collector.snmp.credentials import CredentialsError, SnmpCredentials
+from lightwarden.collector.snmp.session import EnginePool
+from lightwarden.collector.snmp.source import SnmpSource
+from lightwarden.collector.source import PollSource
+from lightwarden.collector.ssh_source import SshCredentials, SshSource, SshWorkers
+from lightwarden.exporters.config import ConfigError, SiteConfig
+from lightwarden.exporters.metrics import Exposition
+from lightwarden.rules.assess import MarginTargets, assess
+from lightwarden.rules.catalogue import Catalogue, PmdSpec, default_catalogue
+from lightwarden.rules.findings import AlertEvent, Assessment
+from lightwarden.rules.hysteresis import ConditionTracker, HysteresisPolicy
+from lightwarden.rules.lifecycle import AlertLifecycle, LifecycleConfig
+from lightwarden.rules.windows import WindowOverride, WindowResolver
+
+log = logging.getLogger("lightwarden.service")
+
+
+def build_catalogue(cfg: SiteConfig) -> Catalogue:
+    base = default_catalogue()
+    if not cfg.pmd_additions:
+        return base
+    return base.with_additions(
+        PmdSpec(
+            name=a.name,
+            clause="",
+            wavelength_min_nm=a.wavelength_min_nm,
+            wavelength_max_nm=a.wavelength_max_nm,
+            reach_m=a.reach_m,
+            lanes=a.lanes,
+            tx_min_dbm=a.tx_min_dbm,
+            tx_max_dbm=a.tx_max_dbm,
+            rx_overload_dbm=a.rx_overload_dbm,
+            rx_min_avg_dbm=a.rx_min_avg_dbm,
+            source=a.source,
+        )
+        for a in cfg.pmd_additions
+    )
+
+
+def build_overrides(cfg: SiteConfig) -> list[WindowOverride]:
+    out = []
+    for i, o in enumerate(cfg.overrides):
+        device = port = None
+        if o.port is not None:
+            device, port = o.port.split()
+        try:
+            out.append(
+                WindowOverride(
+                    quantity=Quantity[o.quantity.upper()],
+                    device=device,
+                    port=port,
+                    part_number=o.part_number,
+                    lane=o.lane,
+                    low_alarm=o.low_alarm,
+                    low_warning=o.low_warning,
+                    high_warning=o.high_warning,
+                    high_alarm=o.high_alarm,
+                    rx_overload=o.rx_overload_dbm,
+                    rx_sensitivity=o.rx_sensitivity_dbm,
+                )
+            )
+        except ValueError as exc:
+            raise ConfigError(f"overrides[{i}]: {exc}") from None
+    return out
+
+
+@dataclass(slots=True)
+class DeviceView:
+    """The latest poll of one device, as the check command and status page read it."""
+
+    outcome: PollOutcome
+    assessment: Assessment | None
+
+
+class Monitor:
+    """Everything between a site config and the outside world, minus the HTTP socket."""
+
+    def __init__(
+        self,
+        cfg: SiteConfig,
+        *,
+        base_dir: Path | None = None,
+        clock: Callable[[], float] = time.time,
+        alerts: bool = True,
+    ) -> None:
+        self.cfg = cfg
+        self.base_dir = base_dir or Path.cwd()
+        self.clock = clock
+        self.catalogue = build_catalogue(cfg)
+        self.resolver = WindowResolver(self.catalogue, build_overrides(cfg))
+        self.targets = MarginTargets(cfg.margins.sensitivity_db, cfg.margins.overload_db)
+        self.tracker = ConditionTracker(
+            HysteresisPolicy(
+                hold_s=cfg.conditions.hold_s,
+                clear_hold_s=cfg.conditions.clear_hold_s,
+                hysteresis_db=cfg.conditions.hysteresis_db,
+            )
+        )
+        self.lifecycle = AlertLifecycle(
+            LifecycleConfig(
+                open_hold_s=cfg.alerting.open_hold_s,
+                resolve_hold_s=cfg.alerting.resolve_hold_s,
+                targets=self.targets,
+            )
+        )
+        self.exposition = Exposition(
+            margin_target_overload_db=self.targets.overload_db,
+            margin_target_sensitivity_db=self.targets.sensitivity_db,
+        )
+        self.views: dict[str, DeviceView] = {}
+        self.open_alerts: dict[str, AlertEvent] = {}
+        self.alert_sink: Callable[[list[AlertEvent]], None] | None = None
+        self._alerts_enabled = alerts
+        self._engines: EnginePool | None = None
+        self._ssh_workers: SshWorkers | None = None
+        self.sources: list[PollSource] = []
+        self.exposition.set_alert_source(lambda: list(self.open_alerts.values()))
+
+    # -- sources --------------------------------------------------------------------
+    def build_sources(self) -> list[PollSource]:
+        """Make one source per device. Reads secrets; errors name device and reference."""
+        cfg = self.cfg
+        pmd_names = tuple(s.name for s in self.catalogue)
+        sources: list[PollSource] = []
+        platforms: dict[str, object] = {}
+        for d in cfg.devices:
+            cred = cfg.credentials[d.credentials]
+            timeout = d.timeout_s or cfg.poll.timeout_s
+            retries = d.retries if d.retries is not None else cfg.poll.retries
+            try:
+                if d.protocol == "snmp":
+                    if self._engines is None:
+                        self._engines = EnginePool()
+                    if cred.snmp_v2c is not None:
+                        creds = SnmpCredentials.v2c(cred.snmp_v2c.community.read(self.base_dir))
+                    else:
+                        v3 = cred.snmp_v3
+                        assert v3 is not None
+                        creds = SnmpCredentials.v3(
+                            v3.user,
+                            v3.auth_key.read(self.base_dir),
+                            v3.priv_key.read(self.base_dir),
+                            auth_protocol=v3.auth_protocol,
+                            priv_protocol=v3.priv_protocol,
+                        )
+                    sources.append(
+                        SnmpSource(d.name, d.host, creds, port=d.port or 161, timeout=timeout,
+                                   retries=retries, pmd_names=pmd_names, engines=self._engines)
+                    )
+                else:
+                    ssh = cred.ssh
+                    assert ssh is not None and d.platform is not None
+                    if self._ssh_workers is None:
+                        self._ssh_workers = SshWorkers(cfg.poll.ssh_threads)
+                    if d.platform not in platforms:
+                        ref = Path(d.platform)
+                        if ref.suffix in (".yaml", ".yml") and not ref.is_absolute():
+                            ref = self.base_dir / ref
+                        platforms[d.platform] = load_platform(ref if ref.suffix else d.platform)
+                    known = d.known_hosts or cfg.ssh.known_hosts
+                    if known is not None and not Path(known).is_absolute():
+                        known = str(self.base_dir / known)
+                    sources.append(
+                        SshSource(
+                            d.name, d.host, platforms[d.platform],  # type: ignore[arg-type]
+                            SshCredentials(
+                                ssh.username,
+                                password=ssh.password.read(self.base_dir) if ssh.password else "",
+                                key_file=ssh.key_file,
+                                key_passphrase=(ssh.passphrase.read(self.base_dir)
+                                                if ssh.passphrase else ""),
+                            ),
+                            self._ssh_workers,
+                            port=d.port or 22,
+                            known_hosts=known,
+                            strict_host_key=cfg.ssh.strict_host_keys,
+                            connect_timeout=max(timeout, 5.0),
+                            read_timeout=cfg.ssh.read_timeout_s,
+                            max_sessions=cfg.poll.ssh_per_device,
+                        )
+                    )
+            except (ConfigError, CredentialsError, PlatformError) as exc:
+                raise ConfigError(f"device {d.name!r} (credentials {d.credentials!r}): {exc}") \
+                    from None
+        self.sources = sources
+        return sources
+
+    def close(self) -> None:
+        for s in self.sources:
+            close = getattr(s, "close", None)
+            if close is not None:
+                close()
+        if self._engines is not None:
+            self._engines.close()
+        if self._ssh_workers is not None:
+            self._ssh_workers.shutdown(wait=False)
+
+    # -- handling outcomes ----------------------------------------------------------
+    def handle(self, outcome: PollOutcome) -> DeviceView:
+        """Judge one poll, update metrics and alerts. Never raises for device trouble."""
+        now = outcome.started_at + outcome.duration_s
+        assessment = None
+        events: list[AlertEvent] = []
+        if outcome.batch is not None:
+            assessment = assess(outcome.batch, targets=self.targets, tracker=self.tracker,
+                                now=now, resolver=self.resolver)
+            if self._alerts_enabled:
+                events = self.lifecycle.observe(assessment, now)
+        elif self._alerts_enabled:
+            events = self.lifecycle.mark_stale(outcome.device, now)
+        self.exposition.update(outcome, assessment)
+        view = self.views[outcome.device] = DeviceView(outcome, assessment)
+        if events:
+            self._track(events)
+            if self.alert_sink is not None:
+                self.alert_sink(events)
+        return view
+
+    def _track(self, events: list[AlertEvent]) -> None:
+        for e in events:
+            if e.kind == "resolve":
+                self.open_alerts.pop(e.key, None)
+            else:
+                self.open_alerts[e.key] = e
+
+    async def poll_all(self) -> list[DeviceView]:
+        """Poll every device once, concurrently; used by `check`."""
+        if not self.sources:
+            self.build_sources()
+        now = self.clock()
+        outcomes = await asyncio.gather(*(s.poll(now) for s in self.sources))
+        return [self.handle(o) for o in outcomes]
+
+    def scheduler(self) -> PollScheduler:
+        if not self.sources:
+            self.build_sources()
+        sched = PollScheduler(
+            interval_s=self.cfg.poll.interval_s,
+            jitter_s=self.cfg.poll.jitter_s,
+            on_outcome=self.handle,
+            clock=self.clock,
+            backoff_cap_s=self.cfg.poll.max_backoff_s,
+        )
+        by_name = {d.name: d for d in self.cfg.devices}
+        for s in self.sources:
+            sched.add_source(s, interval_s=by_name[s.name].interval_s)
+        return sched

@@ -83,3 +83,18 @@ def test_cli_rejects_bad_duration_clearly(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "drift_window" in err and "'6 hours'" in err and "Traceback" not in err
     assert not (tmp_path / "x.yml").exists()
+
+
+@pytest.mark.external
+def test_example_prometheus_config_is_valid():
+    promtool = require_binary("promtool")
+    res = run([promtool, "check", "config", str(DEPLOY / "prometheus.yml")])
+    assert res.returncode == 0, res.stdout + res.stderr
+
+
+@pytest.mark.external
+def test_example_alertmanager_config_is_valid():
+    amtool = require_binary("amtool")
+    cfg = DEPLOY.parent / "alertmanager" / "alertmanager.yml"
+    res = run([amtool, "check-config", str(cfg)])
+    assert res.returncode == 0, res.stdout + res.stderr

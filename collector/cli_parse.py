@@ -121,9 +121,8 @@ def read_cell(text: str, quantity: Quantity, unit: str, platform: Platform) -> C
     if power and word in {w.lower() for w in platform.no_light}:
         return Cell(None, ReadingStatus.NO_LIGHT, f"no light (device shows {shown!r})")
     if word in {w.lower() for w in platform.not_supported}:
-        return Cell(
-            None, ReadingStatus.UNSUPPORTED, f"{quantity.label}: not supported (device shows {shown!r})"
-        )
+        note = f"{quantity.label}: not supported (device shows {shown!r})"
+        return Cell(None, ReadingStatus.UNSUPPORTED, note)
     if word in {w.lower() for w in platform.no_light}:
         return Cell(None, ReadingStatus.UNSUPPORTED, f"{quantity.label}: no reading ({shown!r})")
     if unit not in UNITS_FOR[quantity]:

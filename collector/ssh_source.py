@@ -15,6 +15,7 @@ still returned), ``config`` (unusable local settings) or ``internal``.
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import errno
 import socket
 import time
@@ -131,10 +132,8 @@ class PlatformDriver(NoEnable, NoConfig, BaseConnection):
         return super().is_alive()
 
     def cleanup(self, command: str = "exit") -> None:
-        try:
+        with contextlib.suppress(Exception):
             self.write_channel(command + self.RETURN)
-        except Exception:  # noqa: BLE001 - leaving a session that may already be gone
-            pass
 
 
 # -- the source ------------------------------------------------------------------------
@@ -161,13 +160,12 @@ def _refused(exc: BaseException) -> bool:
     for e in _chain(exc):
         if isinstance(e, ConnectionRefusedError):
             return True
-        if isinstance(e, paramiko.ssh_exception.NoValidConnectionsError):
-            if any(
-                isinstance(v, ConnectionRefusedError)
-                or getattr(v, "errno", None) == errno.ECONNREFUSED
-                for v in e.errors.values()
-            ):
-                return True
+        if isinstance(e, paramiko.ssh_exception.NoValidConnectionsError) and any(
+            isinstance(v, ConnectionRefusedError)
+            or getattr(v, "errno", None) == errno.ECONNREFUSED
+            for v in e.errors.values()
+        ):
+            return True
     return False
 
 
@@ -234,7 +232,7 @@ class SshSource:
             except PollFailure as exc:
                 return PollOutcome(self.name, now, time.monotonic() - started,
                                    error=str(exc), error_kind=exc.kind)
-            except Exception as exc:  # noqa: BLE001 - reported as an outcome, never raised
+            except Exception as exc:
                 return PollOutcome(
                     self.name, now, time.monotonic() - started,
                     error=f"{self.name}: unexpected {type(exc).__name__} while polling over SSH",
@@ -332,13 +330,13 @@ class SshSource:
             conn = PlatformDriver(
                 platform=self.platform, prepare_timeout=self.read_timeout, **kwargs
             )
-        except Exception as exc:  # noqa: BLE001 - classified below
+        except Exception as exc:
             raise self._classify(exc, "connect") from None
         for step, run in (("connect", conn.establish_connection),
                           ("prepare", conn._try_session_preparation)):
             try:
                 run()
-            except Exception as exc:  # noqa: BLE001
+            except Exception as exc:
                 conn.disconnect()
                 raise self._classify(exc, step) from None
         return conn
@@ -354,7 +352,7 @@ class SshSource:
                     strip_prompt=True,
                     strip_command=True,
                 )
-            except Exception as exc:  # noqa: BLE001
+            except Exception as exc:
                 raise self._classify(exc, command, conn) from None
             outputs[command] = str(text)
         return outputs
@@ -386,7 +384,10 @@ class SshSource:
                 f"{name}: host key unknown: {where} is not in "
                 f"{self.known_hosts or 'known_hosts'}; add its key to trust it",
             )
-        if any(isinstance(e, SessionDropped | EOFError | ReadException) for e in chain) or (
+        # ReadTimeout is a ReadException too: only other read failures mean a dead channel.
+        if any(isinstance(e, SessionDropped | EOFError)
+               or (isinstance(e, ReadException) and not isinstance(e, ReadTimeout))
+               for e in chain) or (
             isinstance(exc, ReadTimeout) and conn is not None and not conn.is_alive()
         ):
             during = "while logging in" if step in ("connect", "prepare") else f"during {step!r}"

@@ -17,8 +17,9 @@ from typing import Annotated, Any, Literal
 
 import textfsm
 import yaml
-from lightwarden.collector.readings import Quantity
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+
+from lightwarden.collector.readings import Quantity
 
 #: Units a column may be declared in, per quantity. Values are converted to reading units
 #: (dBm, mA, C, V) by the parser.
@@ -273,14 +274,14 @@ def _index_nodes(
         for key_node, value_node in node.value:
             key = key_node.value
             if key in seen:
-                dupes.append((path + (key,), key_node.start_mark.line + 1))
+                dupes.append(((*path, key), key_node.start_mark.line + 1))
             seen.add(key)
-            out[path + (key,)] = key_node.start_mark.line + 1
-            _index_nodes(value_node, path + (key,), out, dupes)
-            out[path + (key,)] = key_node.start_mark.line + 1
+            out[(*path, key)] = key_node.start_mark.line + 1
+            _index_nodes(value_node, (*path, key), out, dupes)
+            out[(*path, key)] = key_node.start_mark.line + 1
     elif isinstance(node, yaml.SequenceNode):
         for i, item in enumerate(node.value):
-            _index_nodes(item, path + (i,), out, dupes)
+            _index_nodes(item, (*path, i), out, dupes)
 
 
 def _key_text(loc: tuple[str | int, ...]) -> str:
@@ -290,10 +291,17 @@ def _key_text(loc: tuple[str | int, ...]) -> str:
     return text
 
 
-def _clean_loc(loc: tuple[str | int, ...]) -> tuple[str | int, ...]:
-    # Drop pydantic's union tags ("readings"/"thresholds" after a discriminated union,
-    # "function-after[...]" wrappers) so paths read like the YAML the author wrote.
-    return tuple(p for p in loc if not (isinstance(p, str) and ("[" in p or "(" in p)))
+def _clean_loc(
+    loc: tuple[str | int, ...], lines: dict[tuple[str | int, ...], int]
+) -> tuple[str | int, ...]:
+    # Pydantic inserts parts the author never wrote (a tagged union's tag such as
+    # "readings", validator wrappers): keep only parts present in the YAML, plus the
+    # last one (a missing key is reported by its own name).
+    kept: tuple[str | int, ...] = ()
+    for i, part in enumerate(loc):
+        if (*kept, part) in lines or i == len(loc) - 1:
+            kept = (*kept, part)
+    return kept
 
 
 def parse_platform(text: str, file: str, base_dir: Path | None = None) -> Platform:
@@ -319,7 +327,7 @@ def parse_platform(text: str, file: str, base_dir: Path | None = None) -> Platfo
         platform = Platform.model_validate(data)
     except ValidationError as exc:
         err = exc.errors(include_url=False, include_input=False)[0]
-        loc = _clean_loc(tuple(err["loc"]))
+        loc = _clean_loc(tuple(err["loc"]), lines)
         msg = err["msg"].removeprefix("Value error, ")
         if err["type"] == "extra_forbidden":
             msg = "unknown key (check the spelling; see README.md for the fields)"

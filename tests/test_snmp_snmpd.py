@@ -1,31 +1,26 @@
 """The SNMP source against a real net-snmp snmpd serving fixtures/snmpd/dataset.conf.
 
-Cross-check: net-snmp's own CLI (snmpbulkwalk/snmpget, C, independent of pysnmp) reads
-the same agent; its raw numbers, converted with the RFC 3433 formula written out here
-(physical = value x 10^((scale-9) x 3) x 10^-precision; dBm = 10 log10(P / 1 mW)),
-must agree with what the collector reports.
+Cross-check: net-snmp's own CLI (snmpbulkwalk, C, independent of pysnmp) reads the same
+agent; its raw numbers, converted with the RFC 3433 formula written out in _snmp_check.py
+(source: standards.md, verified from the MIB text) and the textbook dBm definition, must
+agree with what the collector reports.
 """
 
 from __future__ import annotations
 
 import asyncio
-import math
-import re
 
+import _snmp_check
 import pytest
 from _snmpd import SnmpdAgent, start_snmpd
+
 from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
 from lightwarden.collector.snmp import EnginePool, SnmpCredentials, SnmpSource
 
 pytestmark = pytest.mark.external
 
-SENSOR = "1.3.6.1.2.1.99.1.1.1"
-ENT_NAME = "1.3.6.1.2.1.47.1.1.1.1.7"
 # IEEE 802.3 PMD names (trade terms); "100GBASE-LR" is a decoy shorter than the real one
 PMD_NAMES = ("10GBASE-LR", "10GBASE-SR", "100GBASE-LR4", "100GBASE-LR", "100GBASE-SR4")
-
-_LINE = re.compile(r'^\.?([\d.]+) = (?:(INTEGER|STRING|OID|Timeticks): )?"?(.*?)"?$')
-
 
 # Extra v3 users: (user, net-snmp auth, net-snmp priv, our auth name, our priv name)
 EXTRA_USERS = [
@@ -51,65 +46,11 @@ def agent(tmp_path_factory):
 
 
 def cli_walk(agent: SnmpdAgent, oid: str, v3: bool = False) -> dict[str, tuple[str, str]]:
-    """net-snmp snmpbulkwalk -On output as {oid: (type, text)}."""
-    rows = {}
-    for line in agent.cli("snmpbulkwalk", oid, v3=v3).splitlines():
-        match = _LINE.match(line.strip())
-        if match:
-            rows[match.group(1)] = (match.group(2) or "", match.group(3))
-    return rows
+    return _snmp_check.cli_walk(agent.address, agent.v3_args() if v3 else agent.v2c_args(), oid)
 
 
-Key = tuple[str, Quantity, int]
-
-
-def expected_from_cli(agent: SnmpdAgent, v3: bool = False) -> dict[Key, tuple]:
-    """(port, quantity, lane) -> (ReadingStatus, value) computed from net-snmp's raw output."""
-    walked = cli_walk(agent, SENSOR, v3=v3)
-    names = cli_walk(agent, ENT_NAME, v3=v3)
-
-    def column(col: int, index: str) -> tuple[str, str]:
-        return walked[f"{SENSOR}.{col}.{index}"]
-
-    expected = {}
-    for oid, (_, name) in names.items():
-        index = oid.rsplit(".", 1)[1]
-        words = name.split()
-        if f"{SENSOR}.1.{index}" not in walked or not words[0].startswith("Eth"):
-            continue
-        port, rest = words[0], " ".join(words[1:])
-        lane = int(rest.rsplit(" ", 1)[1]) if "Lane" in rest else 0
-        quantity = {
-            "Rx Power": Quantity.RX_POWER,
-            "Tx Power": Quantity.TX_POWER,
-            "Bias": Quantity.BIAS,
-            "Temperature": Quantity.TEMPERATURE,
-            "Supply Voltage": Quantity.SUPPLY,
-        }[rest.split(" Lane")[0]]
-        kind = int(column(1, index)[1])
-        scale, precision = int(column(2, index)[1]), int(column(3, index)[1])
-        value_type, value_text = column(4, index)
-        status, units = int(column(5, index)[1]), column(6, index)[1]
-        if status != 1:
-            expected[(port, quantity, lane)] = (ReadingStatus.UNAVAILABLE, None)
-            continue
-        if value_type != "INTEGER":
-            expected[(port, quantity, lane)] = (ReadingStatus.INVALID, None)
-            continue
-        # RFC 3433 (standards.md, verified): value x 10^((scale-9)*3) x 10^-precision
-        physical = int(value_text) * 10.0 ** ((scale - 9) * 3) * 10.0 ** (-precision)
-        if kind == 6:  # watts -> dBm (textbook definition)
-            result = (ReadingStatus.NO_LIGHT, None) if physical == 0 else (
-                ReadingStatus.OK, 10 * math.log10(physical / 1e-3))
-        elif kind == 1 and units == "dBm":  # contract: -40 dBm floor = no light
-            result = (ReadingStatus.NO_LIGHT, None) if physical <= -40 else (
-                ReadingStatus.OK, physical)
-        elif kind == 5:  # amperes -> mA
-            result = (ReadingStatus.OK, physical * 1e3)
-        else:  # celsius, voltsDC
-            result = (ReadingStatus.OK, physical)
-        expected[(port, quantity, lane)] = result
-    return expected
+def expected_from_cli(agent: SnmpdAgent, v3: bool = False) -> dict[_snmp_check.Key, tuple]:
+    return _snmp_check.expected_readings(agent.address, agent.v3_args() if v3 else agent.v2c_args())
 
 
 def poll_once(agent: SnmpdAgent, credentials: SnmpCredentials, polls: int = 1) -> list[PollOutcome]:
@@ -127,22 +68,8 @@ def poll_once(agent: SnmpdAgent, credentials: SnmpCredentials, polls: int = 1) -
     return outcomes
 
 
-def rows_by_key(outcome: PollOutcome) -> dict[tuple[str, Quantity, int], tuple]:
-    assert outcome.ok, outcome.error
-    return {(o.port, q, lane): (status, value, note)
-            for o, lane, q, value, status, note in outcome.batch.rows()}  # fmt: skip
-
-
-def assert_agrees(outcome: PollOutcome, expected: dict) -> None:
-    got = rows_by_key(outcome)
-    assert set(got) == set(expected)
-    for key, (status, value) in expected.items():
-        got_status, got_value, note = got[key]
-        assert got_status is status, (key, note)
-        if status is ReadingStatus.OK:
-            assert got_value == pytest.approx(value, abs=1e-9), key
-        else:
-            assert math.isnan(got_value) and note, key
+rows_by_key = _snmp_check.collector_rows
+assert_agrees = _snmp_check.assert_agrees
 
 
 @pytest.mark.parametrize("version", ["v2c", "v3-authPriv-SHA-AES"])

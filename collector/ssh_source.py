@@ -37,6 +37,7 @@ from netmiko.no_config import NoConfig
 from netmiko.no_enable import NoEnable
 
 from lightwarden.collector.cli_parse import parse_outputs
+from lightwarden.collector.eeprom.hexdump import HexDumpError, parse_hexdump
 from lightwarden.collector.platforms.platform import Platform
 from lightwarden.collector.readings import PollOutcome
 
@@ -76,6 +77,16 @@ class SshWorkers:
 
 
 # -- the netmiko driver ----------------------------------------------------------------
+
+
+@dataclass(slots=True)
+class MemoryMapOutcome:
+    """One port's memory map (raw bytes in our binary layout), or why there is none."""
+
+    port: str
+    data: bytes | None = None
+    error: str = ""
+    error_kind: str = ""
 
 
 class SessionDropped(ConnectionError):
@@ -246,6 +257,25 @@ class SshSource:
             outcome.error_kind = "parse"
         return outcome
 
+    async def read_memory_map(self, port: str) -> MemoryMapOutcome:
+        """Fetch one port's module memory map with the platform's eeprom command."""
+        if self.platform.eeprom is None:
+            return MemoryMapOutcome(port, error=f"{self.name}: platform {self.platform.name!r} "
+                                    "has no memory-map command", error_kind="unsupported")
+        command = self.platform.eeprom.command.format(port=port)
+        async with self._semaphore():
+            try:
+                text = (await self.workers.run(self._collect, [command]))[command]
+            except PollFailure as exc:
+                return MemoryMapOutcome(port, error=str(exc), error_kind=exc.kind)
+        try:
+            return MemoryMapOutcome(port, data=parse_hexdump(text))
+        except HexDumpError as exc:
+            first = text.strip().splitlines()[0] if text.strip() else "empty output"
+            reason = first if first.startswith("%") else str(exc)
+            return MemoryMapOutcome(port, error=f"{self.name}: {command!r}: {reason}",
+                                    error_kind="parse")
+
     async def aclose(self) -> None:
         await self.workers.run(self.close)
 
@@ -256,7 +286,8 @@ class SshSource:
             conn.disconnect()
 
     # -- blocking part, on a worker thread ---------------------------------------------
-    def _collect(self) -> dict[str, str]:
+    def _collect(self, commands: list[str] | None = None) -> dict[str, str]:
+        commands = self.platform.commands() if commands is None else commands
         conn: PlatformDriver | None = None
         reused = False
         while self._idle:
@@ -268,7 +299,7 @@ class SshSource:
         if conn is None:
             conn = self._connect()
         try:
-            outputs = self._run_commands(conn)
+            outputs = self._run_commands(conn, commands)
         except PollFailure as exc:
             conn.disconnect()
             if not (reused and exc.kind == "dropped"):
@@ -276,7 +307,7 @@ class SshSource:
             # A kept session died between polls without us noticing: reconnect once.
             conn = self._connect()
             try:
-                outputs = self._run_commands(conn)
+                outputs = self._run_commands(conn, commands)
             except PollFailure:
                 conn.disconnect()
                 raise
@@ -341,9 +372,9 @@ class SshSource:
                 raise self._classify(exc, step) from None
         return conn
 
-    def _run_commands(self, conn: PlatformDriver) -> dict[str, str]:
+    def _run_commands(self, conn: PlatformDriver, commands: list[str]) -> dict[str, str]:
         outputs: dict[str, str] = {}
-        for command in self.platform.commands():
+        for command in commands:
             try:
                 text = conn.send_command(
                     command,

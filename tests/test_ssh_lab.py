@@ -428,6 +428,30 @@ def test_per_device_sessions_are_bounded(server, workers, qmos):
     assert server.accepted("qm-f-busy") == before + 1
 
 
+def test_memory_map_over_ssh_decodes_to_the_same_optic(server, workers, qmos, lab, clock):
+    from lightwarden.collector.eeprom import decode
+
+    src = make_source(server, workers, qmos, "qm-dist-a", read_timeout=10)
+
+    async def go():
+        outs = [await src.read_memory_map(p) for p in ("sfp6", "qsfp1", "sfp99")]
+        await src.aclose()
+        return outs
+
+    sfp6, qsfp1, missing = run(go())
+    samples = {s.port.name: s for s in lab.sample("qm-dist-a", clock.now())}
+    for got in (sfp6, qsfp1):
+        assert got.error == "" and got.data is not None
+        m = decode(got.data)
+        optic = samples[got.port].optic
+        assert (m.pmd, m.serial, m.part_number) == (optic.part.pmd, optic.serial,
+                                                    optic.part.part_number)
+    # lab.yaml story: qm-dist-a sfp6 carries a memory map with a corrupt CC_BASE
+    assert any("CC_BASE" in p for p in decode(sfp6.data).problems)
+    assert missing.error_kind == "parse"
+    assert missing.error == "qm-dist-a: 'optics eeprom sfp99': % optics eeprom sfp99: no such port"
+
+
 # -- many devices ------------------------------------------------------------------------
 
 

@@ -34,9 +34,11 @@ class OpticRow:
     condition: str = Condition.HEALTHY.word
     severity: int = 0
     notes: list[str] = field(default_factory=list)
+    #: the subset of notes that explain a missing or odd value (shown in tables)
+    value_notes: list[str] = field(default_factory=list)
 
     def as_json(self) -> dict[str, object]:
-        out = {k: getattr(self, k) for k in self.__slots__ if k != "severity"}  # type: ignore[attr-defined]
+        out = {k: getattr(self, k) for k in self.__slots__ if k not in ("severity", "value_notes")}  # type: ignore[attr-defined]
         for k, v in out.items():
             if isinstance(v, float):
                 out[k] = round(v, 3)
@@ -123,8 +125,11 @@ def _fold(row: OpticRow, a: Assessment, i: int) -> None:
             text = f"{q.label}: {note}"
             if text not in row.notes:
                 row.notes.append(text)
-    if status is not ReadingStatus.OK and not b.notes.get(i):
-        row.notes.append(f"{q.label}: {_STATUS_WORDS.get(status, status.name.lower())}")
+    if status is not ReadingStatus.OK:
+        text = f"{q.label}: {b.notes.get(i) or _STATUS_WORDS.get(status, status.name.lower())}"
+        if text not in row.notes:
+            row.notes.append(text)
+        row.value_notes.append(text)
 
 
 def failed_device_row(outcome: PollOutcome) -> dict[str, object]:

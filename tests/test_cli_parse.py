@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import pytest
 
@@ -13,6 +14,8 @@ from lightwarden.collector.cli_parse import (
     run_template,
     split_transcript,
 )
+from lightwarden.collector.platforms.check import check_transcript
+from lightwarden.collector.platforms.check import main as check_main
 from lightwarden.collector.platforms.platform import load_platform
 from lightwarden.collector.readings import Quantity, ReadingStatus
 
@@ -256,3 +259,64 @@ def test_transcript_splits_by_prompt(qmos):
     assert set(outputs) == {"optics inventory", "optics diagnostics"}
     assert outputs["optics inventory"].splitlines()[0] == "Optics inventory"
     assert "qmos>" not in outputs["optics diagnostics"]
+
+
+# -- the platform guide's examples and the check command ----------------------------------
+
+GUIDE = (Path(load_platform("qmos").base_dir) / "README.md").read_text()
+
+
+def test_guide_minimal_definition_works(tmp_path):
+    yaml_blocks = [b.split("\n", 1) for b in GUIDE.split("```")[1::2]]
+    minimal = next(body for head, body in yaml_blocks if "name: brackenfell" in body)
+    template = next(body for head, body in yaml_blocks if body.startswith("Value PORT (\\S+)\n"
+                                                                          "Value RX"))
+    (tmp_path / "brackenfell.yaml").write_text(minimal)
+    (tmp_path / "brackenfell_power.textfsm").write_text(template)
+    platform = load_platform(tmp_path / "brackenfell.yaml")
+    session = (
+        "edge-1# transceivers power\n"
+        "Interface  Rx      Tx\n"
+        "xe1        -7.25   -2.10\n"
+        "xe2        -inf    -2.30\n"
+        "edge-1#\n"
+    )
+    report = check_transcript(platform, session)
+    assert report.clean, report.render()
+    rows = _rows(report.result.batch)
+    assert rows[("xe1", 1, RX)][0] == pytest.approx(-7.25)
+    assert rows[("xe2", 1, RX)][1] is ReadingStatus.NO_LIGHT
+
+
+def test_guide_worked_example_matches_its_stated_result(qmos):
+    sample = next(b.split("\n", 1)[1] for b in GUIDE.split("```")[1::2]
+                  if "qm-core-a:qmos> optics diagnostics" in b)
+    outputs = split_transcript(qmos, sample)
+    result = parse_outputs("qm-core-a", qmos, outputs, 0.0)
+    rows = _rows(result.batch)
+    # the guide states: 0.3776 mW -> -4.230 dBm (10*log10, standards.md textbook definition)
+    assert round(rows[("sfp1", 1, RX)][0], 3) == -4.230
+    assert rows[("sfp1", 1, BIAS)][0] == pytest.approx(35.154)
+    assert rows[("sfp2", 1, BIAS)][2] == "bias: not supported (device shows 'N/A')"
+    assert ("qsfp1", 2, RX) in rows and ("qsfp1", 0, Quantity.SUPPLY) in rows
+    # only inventory/thresholds are missing from the guide's snippet
+    assert all(p.startswith("no output for") for p in result.problems)
+
+
+def test_check_command_exit_codes(tmp_path, capsys):
+    session = tmp_path / "session.txt"
+    session.write_text("qm-x:qmos> optics diagnostics\n" + DIAG_MW + "qm-x:qmos> \n")
+    assert check_main(["qmos", str(session)]) == 1  # the stray lines and missing commands
+    out = capsys.readouterr().out
+    assert "line 6 not understood" in out and "sfp1" in out
+    clean = tmp_path / "clean.txt"
+    body = "\n".join(line for line in DIAG_MW.splitlines()
+                     if not line.startswith(("sfp7", "something")))
+    clean.write_text(
+        "qm-x:qmos> optics inventory\n" + INVENTORY + "qm-x:qmos> optics diagnostics\n" + body
+        + "\nqm-x:qmos> optics thresholds\n" + THRESHOLDS_MW + "qm-x:qmos> \n"
+    )
+    assert check_main(["qmos", str(clean)]) == 0, capsys.readouterr().out
+    assert check_main(["no-such-platform", str(clean)]) == 2
+    assert "no shipped platform" in capsys.readouterr().err
+    assert check_main(["qmos", str(tmp_path / "absent.txt")]) == 2

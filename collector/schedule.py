@@ -24,6 +24,7 @@ from datetime import UTC, datetime, timedelta
 
 from apscheduler.schedulers.asyncio import AsyncIOScheduler
 from apscheduler.triggers.interval import IntervalTrigger
+
 from lightwarden.collector.readings import PollOutcome
 from lightwarden.collector.source import PollSource
 

@@ -11,6 +11,7 @@ import asyncio
 import itertools
 
 import pytest
+
 from lightwarden.collector.readings import BatchBuilder, PollOutcome
 from lightwarden.collector.schedule import PollScheduler
 from lightwarden.collector.source import PollSource

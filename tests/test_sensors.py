@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 
 import pytest
+
 from lightwarden.collector.readings import Quantity, ReadingStatus
 from lightwarden.collector.sensors import (
     AMPERES,

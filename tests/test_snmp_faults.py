@@ -11,6 +11,7 @@ import socket
 
 import pytest
 from _snmpd import SnmpdAgent, start_snmpd
+
 from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
 from lightwarden.collector.schedule import PollScheduler
 from lightwarden.collector.snmp import EnginePool, SnmpCredentials, SnmpSource

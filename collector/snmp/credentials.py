@@ -65,6 +65,7 @@ class SnmpCredentials:
     auth_key: str = field(default="", repr=False)
     priv_protocol: str = "AES-128"  # AES-128, AES-192, AES-256 (-C: Reeder key extension)
     priv_key: str = field(default="", repr=False)
+    context: str = ""  # SNMPv3 context name; "" is the default context
 
     @classmethod
     def v2c(cls, community: str) -> SnmpCredentials:
@@ -78,6 +79,7 @@ class SnmpCredentials:
         priv_key: str,
         auth_protocol: str = "SHA",
         priv_protocol: str = "AES-128",
+        context: str = "",
     ) -> SnmpCredentials:
         return cls(
             version="3",
@@ -86,6 +88,7 @@ class SnmpCredentials:
             auth_key=auth_key,
             priv_protocol=priv_protocol,
             priv_key=priv_key,
+            context=context,
         )
 
     def __post_init__(self) -> None:

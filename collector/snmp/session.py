@@ -9,7 +9,6 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
-from lightwarden.collector.snmp.credentials import SnmpCredentials
 from pyasn1.type import univ
 from pysnmp.hlapi.v3arch.asyncio import (
     ContextData,
@@ -22,6 +21,8 @@ from pysnmp.hlapi.v3arch.asyncio import (
 )
 from pysnmp.proto import errind
 from pysnmp.proto.rfc1905 import EndOfMibView
+
+from lightwarden.collector.snmp.credentials import SnmpCredentials
 
 Oid = tuple[int, ...]
 
@@ -120,7 +121,7 @@ class SnmpSession:
         self.retries = retries
         self.max_repetitions = max_repetitions
         self._auth = credentials.auth_data()
-        self._context = ContextData()
+        self._context = ContextData(contextName=credentials.context.encode())
         self._target: UdpTransportTarget | None = None
 
     @property

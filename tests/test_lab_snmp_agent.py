@@ -386,9 +386,15 @@ def test_values_follow_lab_time(lab: Lab):
         clock.epoch = lab.epoch + 3 * HOUR  # frozen clock moved: lab time jumps 3 hours
         time.sleep(0.01)  # past refresh_s, so the next request takes a new snapshot
         after, up_after = read()
-    # dirty_connector story: by 2 h the span into qm-dist-b sfp9 lost 6.5 dB more
-    # (lab.yaml); dBm x 100 encoding, so about -650 give or take the model's small wobble
-    assert after - before == pytest.approx(-650, abs=20)
+    # dirty_connector story (lab.yaml): the span into qm-dist-b sfp9 gained loss steps by
+    # then. dBm x 100 encoding: the served change must be the model's change in dB x 100.
+    def model_dbm(t: float) -> float:
+        s = next(s for s in lab.sample("qm-dist-b", t) if s.port.name == "sfp9")
+        return 10 * math.log10(s.lanes[0].rx_mw)
+
+    model_step = model_dbm(lab.epoch + 3 * HOUR) - model_dbm(lab.epoch)
+    assert model_step < -1.0  # the story's premise: a loss step of more than 1 dB
+    assert after - before == pytest.approx(100 * model_step, abs=1.01)
     assert up_after - up_before == 3 * 3600 * 100
 
 

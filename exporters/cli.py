@@ -192,6 +192,8 @@ async def _serve(monitor: Any, stop: _Stop, duration: float | None) -> None:
             await asyncio.sleep(0.2)
     finally:
         await sched.shutdown(timeout_s=15.0)
+        # SNMP engines hold transports bound to this loop: close them before it ends.
+        monitor.close()
 
 
 def _start_http(monitor: Any, host: str, port: int) -> Any:
@@ -209,7 +211,7 @@ def _start_http(monitor: Any, host: str, port: int) -> Any:
 
 
 def _start_alerting(monitor: Any, cfg: SiteConfig, base: Path) -> Any:
-    from lightwarden.exporters.wiring import start_alerting
+    from lightwarden.exporters.alerting import start_alerting
 
     return start_alerting(monitor, cfg, base)
 
@@ -231,7 +233,6 @@ def cmd_run(args: argparse.Namespace) -> int:
         if alerting is not None:
             alerting.stop()
         server.stop()
-        monitor.close()
     return EXIT_OK
 
 
@@ -283,7 +284,6 @@ def cmd_demo(args: argparse.Namespace) -> int:
             if alert_runner is not None:
                 alert_runner.stop()
             server.stop()
-            monitor.close()
     finally:
         lab.stop()
     return EXIT_OK

@@ -74,7 +74,7 @@ class SnmpV3(_Model):
     user: str
     auth_protocol: Literal["SHA", "SHA-224", "SHA-256", "SHA-384", "SHA-512"] = "SHA-256"
     auth_key: Secret
-    priv_protocol: Literal["AES-128", "AES-192", "AES-256"] = "AES-128"
+    priv_protocol: Literal["AES-128", "AES-192", "AES-256", "AES-192-C", "AES-256-C"] = "AES-128"
     priv_key: Secret
     context: str = ""
 

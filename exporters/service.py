@@ -161,6 +161,7 @@ class Monitor:
                             v3.priv_key.read(self.base_dir),
                             auth_protocol=v3.auth_protocol,
                             priv_protocol=v3.priv_protocol,
+                            context=v3.context,
                         )
                     sources.append(
                         SnmpSource(d.name, d.host, creds, port=d.port or 161, timeout=timeout,

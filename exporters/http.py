@@ -136,11 +136,7 @@ class _Handler(BaseHTTPRequestHandler):
             exp = owner.exposition
             # The client may ask for OpenMetrics; we always answer in text 0.0.4, which
             # every Prometheus accepts and which promtool can lint.
-            if gz_ok:
-                body = exp.body_gzip()
-                self._send(200, CONTENT_TYPE, body, head, gzipped=True)
-            else:
-                self._send(200, CONTENT_TYPE, exp.body(), head)
+            self._send(200, CONTENT_TYPE, exp.scrape(compressed=gz_ok), head, gzipped=gz_ok)
             return
         handler = owner.route(path)
         if handler is None:
@@ -169,14 +165,15 @@ class _Handler(BaseHTTPRequestHandler):
         self,
         status: int,
         ctype: str,
-        body: bytes,
+        body: bytes | list[bytes],
         head: bool,
         gzipped: bool = False,
         extra: Mapping[str, str] | None = None,
     ) -> None:
         self.send_response(status)
         self.send_header("Content-Type", ctype)
-        self.send_header("Content-Length", str(len(body)))
+        parts = [body] if isinstance(body, bytes) else body
+        self.send_header("Content-Length", str(sum(len(p) for p in parts)))
         if gzipped:
             self.send_header("Content-Encoding", "gzip")
         self.send_header("Vary", "Accept-Encoding")
@@ -187,7 +184,8 @@ class _Handler(BaseHTTPRequestHandler):
         self.end_headers()
         if not head:
             try:
-                self.wfile.write(body)
+                for p in parts:
+                    self.wfile.write(p)
             except (TimeoutError, BrokenPipeError, ConnectionResetError):
                 self.close_connection = True
 

@@ -192,6 +192,7 @@ ALERT_OPEN = Family(
 
 _N = len(DEVICE_FAMILIES)
 _HEADERS: tuple[bytes, ...] = tuple(f.header() for f in DEVICE_FAMILIES)
+_HEADERS_GZ: tuple[bytes, ...] = tuple(gzip.compress(h, 1, mtime=0) for h in _HEADERS)
 
 # Value families per quantity, and the factor from reading units to exposition units.
 _VALUE_FAMILY = {
@@ -241,6 +242,7 @@ class DeviceChunks:
 
     device: str
     chunks: tuple[bytes, ...]
+    gz: tuple[bytes, ...]  # the same chunks, each one gzip member (b"" when empty)
     samples: int  # sample lines in all chunks together
     skipped_rows: int  # duplicate or malformed rows left out (see log)
 
@@ -488,9 +490,8 @@ class Exposition:
         self._devices: dict[str, DeviceChunks] = {}
         self._health: dict[str, _Health] = {}
         self._generation = 0
-        self._cached_gen = -1
-        self._cached: bytes = b""
-        self._cached_gz: bytes | None = None
+        self._cached: tuple[int, bytes] | None = None
+        self._cached_gz: tuple[int, bytes] | None = None
         self._targets = b""
         self.set_margin_targets(margin_target_overload_db, margin_target_sensitivity_db)
 
@@ -545,9 +546,12 @@ class Exposition:
                 f'lightwarden_device_poll_errors_total{{device="{dev}",'
                 f'kind="{escape_label_value(kind)}"}} {count}\n'
             )
+        plain = tuple("".join(ls).encode("utf-8", "replace") for ls in lines)
+        level = self._gzip_level
         chunks = DeviceChunks(
             device=device,
-            chunks=tuple("".join(ls).encode("utf-8", "replace") for ls in lines),
+            chunks=plain,
+            gz=tuple(_gz(c, level) if c else b"" for c in plain),
             samples=sum(len(ls) for ls in lines),
             skipped_rows=skipped,
         )
@@ -569,24 +573,36 @@ class Exposition:
 
     # -- output ------------------------------------------------------------------------
 
-    def _device_part(self) -> tuple[int, bytes]:
+    def _device_part(self, compressed: bool) -> bytes:
+        """Targets plus every device family, from cache unless something changed."""
         with self._lock:
-            if self._cached_gen == self._generation:
-                return self._cached_gen, self._cached
             gen = self._generation
-            devices = [self._devices[d].chunks for d in sorted(self._devices)]
+            cached = self._cached_gz if compressed else self._cached
+            if cached is not None and cached[0] == gen:
+                return cached[1]
+            devices = [self._devices[d] for d in sorted(self._devices)]
             targets = self._targets
-        parts: list[bytes] = [targets]
+        if compressed:
+            rows = [d.gz for d in devices]
+            headers = _HEADERS_GZ
+            parts: list[bytes] = [_gz(targets, self._gzip_level)] if targets else []
+        else:
+            rows = [d.chunks for d in devices]
+            headers = _HEADERS
+            parts = [targets]
         for f in range(_N):
-            fam = [c[f] for c in devices if c[f]]
+            fam = [c[f] for c in rows if c[f]]
             if fam:
-                parts.append(_HEADERS[f])
+                parts.append(headers[f])
                 parts.extend(fam)
         body = b"".join(parts)
         with self._lock:
-            if gen >= self._cached_gen:
-                self._cached_gen, self._cached, self._cached_gz = gen, body, None
-        return gen, body
+            if self._generation == gen:
+                if compressed:
+                    self._cached_gz = (gen, body)
+                else:
+                    self._cached = (gen, body)
+        return body
 
     def alerts_text(self) -> bytes:
         """The open-alert family, rendered now from the alert source (b"" when none)."""
@@ -602,30 +618,31 @@ class Exposition:
             return b""
         return render_alerts(events)
 
-    def body(self) -> bytes:
-        """The full exposition, text format 0.0.4."""
-        _, device_part = self._device_part()
-        return device_part + self.alerts_text()
+    def scrape(self, compressed: bool = False) -> list[bytes]:
+        """The exposition as parts to send back to back (no copy of the large body).
 
-    def body_gzip(self) -> bytes:
-        """The full exposition gzip-compressed.
-
-        The device part is compressed once per change and cached; the (small) alert part
-        is compressed per scrape and appended as a second gzip member, which RFC 1952
-        allows and HTTP clients (Go's and Python's included) read as one stream.
+        With ``compressed`` every part is one or more gzip members. Each device chunk was
+        compressed once when its poll landed, so a scrape only joins members; RFC 1952
+        allows a gzip file to be a series of members, and HTTP clients (Go's, used by
+        Prometheus, and Python's) read them as one stream.
         """
-        gen, device_part = self._device_part()
-        with self._lock:
-            gz = self._cached_gz if self._cached_gen == gen else None
-        if gz is None:
-            gz = gzip.compress(device_part, compresslevel=self._gzip_level, mtime=0)
-            with self._lock:
-                if self._cached_gen == gen:
-                    self._cached_gz = gz
+        parts = [self._device_part(compressed)]
         alerts = self.alerts_text()
         if alerts:
-            gz += gzip.compress(alerts, compresslevel=self._gzip_level, mtime=0)
-        return gz
+            parts.append(_gz(alerts, self._gzip_level) if compressed else alerts)
+        return parts
+
+    def body(self) -> bytes:
+        """The full exposition, text format 0.0.4, as one bytes object."""
+        return b"".join(self.scrape(False))
+
+    def body_gzip(self) -> bytes:
+        """The full exposition gzip-compressed, as one bytes object."""
+        return b"".join(self.scrape(True))
+
+
+def _gz(data: bytes, level: int) -> bytes:
+    return gzip.compress(data, compresslevel=level, mtime=0)
 
 
 def render_alerts(events: Iterable[object]) -> bytes:

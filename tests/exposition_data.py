@@ -11,6 +11,7 @@ import shutil
 
 import numpy as np
 import pytest
+
 from lightwarden.collector.readings import (
     BatchBuilder,
     OpticIdentity,

@@ -20,6 +20,7 @@ from pathlib import Path
 
 import pytest
 from exposition_data import lab_assessment, lab_batch, ok_outcome
+
 from lightwarden.exporters.http import HttpRequest, HttpServer, accepts_gzip
 from lightwarden.exporters.metrics import Exposition
 from lightwarden.rules.findings import AlertEvent
@@ -199,10 +200,15 @@ def test_real_prometheus_scrapes_us(server: HttpServer, tmp_path: Path) -> None:
         "  - job_name: lightwarden\n"
         f"    static_configs: [{{targets: ['127.0.0.1:{server.port}']}}]\n"
     )
-    # Count gzip answers: Prometheus asks for gzip, so it must read our two-member body.
+    # Count gzip answers: Prometheus asks for gzip, so it must read our multi-member body.
     gzip_answers = []
-    plain_gzip = server.exposition.body_gzip
-    server.exposition.body_gzip = lambda: gzip_answers.append(1) or plain_gzip()
+    scrape = server.exposition.scrape
+
+    def counting_scrape(compressed: bool = False) -> list[bytes]:
+        gzip_answers.append(compressed)
+        return scrape(compressed)
+
+    server.exposition.scrape = counting_scrape
     web = _free_port()
     proc = subprocess.Popen(
         [binary, f"--config.file={config}", f"--storage.tsdb.path={tmp_path / 'data'}",
@@ -225,7 +231,7 @@ def test_real_prometheus_scrapes_us(server: HttpServer, tmp_path: Path) -> None:
             if {"lightwarden_alert_open", "lightwarden_bias_amperes"} <= names:
                 break
         assert result is not None
-        assert gzip_answers
+        assert gzip_answers and all(gzip_answers)
         by_name = {r["metric"]["__name__"]: r for r in result}
         assert by_name["up"]["value"][1] == "1"
         assert by_name["lightwarden_alert_open"]["metric"]["alertname"] == "OpticRxNearOverload"

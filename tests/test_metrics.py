@@ -23,6 +23,8 @@ from exposition_data import (
     ok_outcome,
     promtool_path,
 )
+from prometheus_client.parser import text_string_to_metric_families
+
 from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
 from lightwarden.exporters.metrics import (
     DEVICE_FAMILIES,
@@ -32,7 +34,6 @@ from lightwarden.exporters.metrics import (
     render_alerts,
 )
 from lightwarden.rules.findings import AlertEvent
-from prometheus_client.parser import text_string_to_metric_families
 
 DEV = "hg-core-1"
 

@@ -19,8 +19,10 @@ import shutil
 import socket
 import subprocess
 import time
+from importlib import resources
 
 import pytest
+import yaml
 
 from lightwarden.fixtures.lab.model import (
     HOUR,
@@ -31,7 +33,13 @@ from lightwarden.fixtures.lab.model import (
     Lab,
     LabClock,
 )
-from lightwarden.fixtures.lab.snmp_agent import LabAgentError, LabSnmpAgent, serve
+from lightwarden.fixtures.lab.snmp_agent import (
+    LabAgentError,
+    LabSnmpAgent,
+    build_device_table,
+    encode_power,
+    serve,
+)
 
 HOST = "127.0.0.1"
 SYS_UPTIME = "1.3.6.1.2.1.1.3.0"
@@ -150,7 +158,7 @@ def lab() -> Lab:
 
 @pytest.fixture(scope="module")
 def lab_t(lab: Lab) -> float:
-    # Three lab hours in: every dirty-connector step of the lab's stories has happened.
+    # Three lab hours in: well after the lab's stories have started.
     return lab.epoch + 3 * HOUR
 
 
@@ -354,27 +362,43 @@ def test_wrong_v3_key_is_refused(agent: LabSnmpAgent):
 
 
 @pytest.mark.external
-def test_sha1_with_aes_when_configured(lab: Lab, lab_t: float):
+@pytest.mark.parametrize(("auth", "priv", "net_snmp_priv"), [
+    ("SHA", "AES-128", "AES"),         # the "SHA family and AES": SHA-1 + AES-128
+    ("SHA-512", "AES-256", "AES256"),  # draft-blumenthal key extension (net-snmp AES256)
+    ("SHA", "AES-256-C", "AES256C"),   # Reeder key extension (net-snmp AES256C)
+])
+def test_other_v3_protocols_when_configured(lab: Lab, lab_t: float, auth: str, priv: str,
+                                            net_snmp_priv: str):
     require_net_snmp()
     with LabSnmpAgent(lab, LabClock(lab_t, speed=0.0), devices=["qm-dist-b"],
-                      auth_protocol="sha", priv_protocol="aes") as a:
+                      auth_protocol=auth, priv_protocol=priv) as a:
         port = a.ports["qm-dist-b"]
-        assert snmp("snmpget", port, v3("SHA"), SYS_NAME)[SYS_NAME] == "qm-dist-b"
-        rx = snmp("snmpget", port, v3("SHA"), f"{SENSOR}.6.{100000 + 49 * 100 + 11}")
-        assert list(rx.values()) == ["dBm"]
-        # the agent configured for SHA-1 must not accept SHA-256 digests
-        wrong = run_tool("snmpget", port, v3("SHA-256"), SYS_NAME, timeout=1, retries=0)
-        assert wrong.returncode != 0 and wrong.stdout == ""
+        creds = v3(auth)
+        creds[creds.index("-x") + 1] = net_snmp_priv
+        assert snmp("snmpget", port, creds, SYS_NAME)[SYS_NAME] == "qm-dist-b"
+        units = snmp("snmpget", port, creds, f"{SENSOR}.6.{100000 + 49 * 100 + 11}")
+        assert list(units.values()) == ["dBm"]  # qsfp1 Rx lane 1 (index scheme, docstring)
+        # an agent configured otherwise must not accept SHA-256 + AES-128
+        if auth != "SHA-256":
+            wrong = run_tool("snmpget", port, v3("SHA-256"), SYS_NAME, timeout=1, retries=0)
+            assert wrong.returncode != 0 and wrong.stdout == ""
 
 
 @pytest.mark.external
 def test_values_follow_lab_time(lab: Lab):
     require_net_snmp()
+    # dirty_connector story (lab.yaml): loss steps on the span into qm-dist-b sfp9.
+    # Compare lab time 0 with a minute after the largest step, wherever lab.yaml puts it.
+    port9 = lab.devices["qm-dist-b"].port("sfp9")
+    steps = port9.link.steps_into["sfp9@qm-dist-b"]
+    t_dirty = max(steps, key=lambda st: st.db).after_s + 60.0
+    assert steps[0].after_s > lab.epoch  # lab time 0 is before the first step
+
     clock = LabClock(lab.epoch, speed=0.0)
     with LabSnmpAgent(lab, clock, devices=["qm-dist-b"], refresh_s=0.001) as a:
         port = a.ports["qm-dist-b"]
         names = column(snmp("snmpbulkwalk", port, V2C, "-Cr50", f"{ENT_PHYS}.7"),
-                        f"{ENT_PHYS}.7")
+                       f"{ENT_PHYS}.7")
         rx = f"{SENSOR}.4." + str(next(i for i, n in names.items()
                                        if n == "sfp9 Rx Power Lane 1"))
 
@@ -383,19 +407,19 @@ def test_values_follow_lab_time(lab: Lab):
             return int(got[rx]), int(got[SYS_UPTIME])
 
         before, up_before = read()
-        clock.epoch = lab.epoch + 3 * HOUR  # frozen clock moved: lab time jumps 3 hours
+        clock.epoch = t_dirty  # the frozen clock moved: lab time jumps
         time.sleep(0.01)  # past refresh_s, so the next request takes a new snapshot
         after, up_after = read()
-    # dirty_connector story (lab.yaml): the span into qm-dist-b sfp9 gained loss steps by
-    # then. dBm x 100 encoding: the served change must be the model's change in dB x 100.
+
+    # dBm x 100 encoding: the served change must be the model's change in dB x 100.
     def model_dbm(t: float) -> float:
         s = next(s for s in lab.sample("qm-dist-b", t) if s.port.name == "sfp9")
         return 10 * math.log10(s.lanes[0].rx_mw)
 
-    model_step = model_dbm(lab.epoch + 3 * HOUR) - model_dbm(lab.epoch)
+    model_step = model_dbm(t_dirty) - model_dbm(lab.epoch)
     assert model_step < -1.0  # the story's premise: a loss step of more than 1 dB
     assert after - before == pytest.approx(100 * model_step, abs=1.01)
-    assert up_after - up_before == 3 * 3600 * 100
+    assert up_after - up_before == round((t_dirty - lab.epoch) * 100)
 
 
 @pytest.mark.external
@@ -439,3 +463,25 @@ def test_unknown_protocol_is_named_in_the_error(lab: Lab):
                          auth_protocol="md4")
     with pytest.raises(LabAgentError, match="md4"):
         agent.start()
+
+
+def test_bad_power_encoding_in_lab_yaml_is_named(lab: Lab):
+    spec = yaml.safe_load(
+        resources.files("lightwarden.fixtures.lab").joinpath("lab.yaml").read_text())
+    spec["devices"]["qm-core-b"]["power_encoding"] = "milliwatts"
+    odd = Lab.from_dict(spec)
+    with pytest.raises(LabAgentError, match=r"qm-core-b.*milliwatts"):
+        build_device_table(odd, "qm-core-b", LabClock(odd.epoch, speed=0.0))
+
+
+# -- the encoder alone, against the standards sheet ----------------------------------------
+def test_encoder_reproduces_the_rfc3433_worked_example():
+    # source: standards.md / RFC 3433 (verified): watts, micro, precision 1, value 8000
+    # -> 800.0 uW -> -0.97 dBm
+    assert encode_power(0.8, "watts") == (8000, 1)
+    assert encode_power(0.8, "dbm") == (-97, 1)  # contract (b): dBm x 100
+    assert rfc3433(8000, 7, 1) == pytest.approx(800.0e-6)
+    # no light and a silent sensor (contract)
+    assert encode_power(0.0, "watts") == (0, 1)
+    assert encode_power(0.0, "dbm") == (-4000, 1)
+    assert encode_power(None, "dbm") == (0, 2)

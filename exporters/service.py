@@ -215,6 +215,12 @@ class Monitor:
         if self._ssh_workers is not None:
             self._ssh_workers.shutdown(wait=False)
 
+    def mount_pages(self, server: object) -> None:
+        """Serve the status page and JSON API on the monitor's HTTP server."""
+        from lightwarden.exporters.status_page import StatusPage
+
+        StatusPage(self).mount(server)  # type: ignore[arg-type]
+
     # -- handling outcomes ----------------------------------------------------------
     def handle(self, outcome: PollOutcome) -> DeviceView:
         """Judge one poll, update metrics and alerts. Never raises for device trouble."""

@@ -1,0 +1,117 @@
+"""The status page (`/`) and its JSON twin (`/api/optics`): worst optics first.
+
+Built per request from the monitor's latest view of each device; the rows are the same
+ones `lightwarden check` prints, so the page, the JSON and the CLI never disagree.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from html import escape
+from typing import Any
+
+from lightwarden.exporters.http import HttpRequest, HttpServer, Response
+from lightwarden.exporters.optic_rows import OpticRow, optic_rows
+from lightwarden.rules.advice import LASER_CAUTION
+
+_CLASS = {0: "ok", 1: "unknown", 2: "warn", 3: "crit"}
+
+
+class StatusPage:
+    def __init__(self, monitor: Any) -> None:
+        self.monitor = monitor
+
+    def mount(self, server: HttpServer) -> None:
+        server.add_route("/", self.page)
+        server.add_route("/api/optics", self.api)
+
+    def rows(self) -> tuple[list[OpticRow], list[dict[str, object]]]:
+        rows: list[OpticRow] = []
+        devices: list[dict[str, object]] = []
+        for name, view in sorted(self.monitor.views.items()):
+            o = view.outcome
+            devices.append({"device": name, "up": o.ok or view.assessment is not None,
+                            "error": o.error, "error_kind": o.error_kind,
+                            "polled_at": o.started_at})
+            if view.assessment is not None:
+                rows.extend(optic_rows(view.assessment))
+        t = self.monitor.targets
+        rows.sort(key=lambda r: (-r.severity, r.worst_margin(t.overload_db, t.sensitivity_db),
+                                 r.device, r.port, r.lane))
+        return rows, devices
+
+    def api(self, _req: HttpRequest) -> Response:
+        rows, devices = self.rows()
+        alerts = [
+            {"alertname": a.alertname, "severity": a.severity, "device": a.device,
+             "port": a.port, "lane": a.lane, "quantity": a.quantity, "summary": a.summary,
+             "advice": a.advice, "caution": a.caution}
+            for a in self.monitor.open_alerts.values()
+        ]
+        doc = {"devices": devices, "optics": [r.as_json() for r in rows], "alerts": alerts}
+        return 200, "application/json", json.dumps(doc).encode()
+
+    def page(self, _req: HttpRequest) -> Response:
+        rows, devices = self.rows()
+        site = escape(self.monitor.cfg.site)
+        out = [
+            "<!doctype html><html><head><meta charset='utf-8'>",
+            f"<title>lightwarden: {site}</title>",
+            "<meta http-equiv='refresh' content='15'>",
+            "<style>body{font:14px system-ui,sans-serif;margin:1.5em}"
+            "table{border-collapse:collapse}td,th{padding:2px 8px;text-align:right}"
+            "td.l,th.l{text-align:left}tr.crit{background:#f8d0d0}tr.warn{background:#fbeec0}"
+            "tr.unknown{background:#e4e4e4}.caution{border:1px solid #c60;padding:.5em;"
+            "max-width:60em}</style></head><body>",
+            f"<h1>lightwarden: {site}</h1>",
+            f"<p>{len(rows)} optic lanes on {len(devices)} devices, worst first; "
+            f"page built {escape(time.strftime('%Y-%m-%d %H:%M:%S'))}.</p>",
+        ]
+        down = [d for d in devices if not d["up"]]
+        if down:
+            out.append("<h2>Devices not answering</h2><ul>")
+            out += [f"<li>{escape(str(d['device']))}: {escape(str(d['error']))}</li>"
+                    for d in down]
+            out.append("</ul>")
+        alerts = list(self.monitor.open_alerts.values())
+        if alerts:
+            out.append("<h2>Open alerts</h2><table><tr><th class=l>alert</th><th class=l>"
+                       "where</th><th class=l>summary</th><th class=l>advice</th></tr>")
+            for a in sorted(alerts, key=lambda a: (a.severity != "critical", a.key)):
+                out.append(
+                    f"<tr class={'crit' if a.severity == 'critical' else 'warn'}>"
+                    f"<td class=l>{escape(a.alertname)}</td>"
+                    f"<td class=l>{escape(a.device)} {escape(a.port)} lane {a.lane}</td>"
+                    f"<td class=l>{escape(a.summary)}</td><td class=l>{escape(a.advice)}</td>"
+                    "</tr>"
+                )
+            out.append("</table>")
+        out.append(
+            "<h2>Optics</h2><table><tr><th class=l>device</th><th class=l>port</th>"
+            "<th>lane</th><th class=l>PMD</th><th>Rx dBm</th><th>Tx dBm</th><th>bias mA</th>"
+            "<th>temp °C</th><th>overload</th><th>sensitivity</th><th>to overload dB</th>"
+            "<th>to sensitivity dB</th><th class=l>window</th><th class=l>condition</th>"
+            "<th class=l>notes</th></tr>"
+        )
+        for r in rows:
+            out.append(
+                f"<tr class={_CLASS[r.severity]}><td class=l>{escape(r.device)}</td>"
+                f"<td class=l>{escape(r.port)}</td><td>{r.lane}</td>"
+                f"<td class=l>{escape(r.pmd or '?')}</td>"
+                + "".join(f"<td>{_n(v)}</td>" for v in (
+                    r.rx_power_dbm, r.tx_power_dbm, r.bias_ma, r.temperature_c,
+                    r.rx_overload_dbm, r.rx_sensitivity_dbm, r.margin_to_overload_db,
+                    r.margin_to_sensitivity_db))
+                + f"<td class=l>{escape(r.window_source)}</td>"
+                f"<td class=l>{escape(r.condition)}</td>"
+                f"<td class=l>{escape('; '.join(r.value_notes))}</td></tr>"
+            )
+        out.append("</table>")
+        out.append(f"<p class=caution>{escape(LASER_CAUTION)}</p>")
+        out.append("</body></html>")
+        return 200, "text/html; charset=utf-8", "".join(out).encode()
+
+
+def _n(v: float | None) -> str:
+    return "–" if v is None else f"{v:.2f}"

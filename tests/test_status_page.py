@@ -1,0 +1,80 @@
+"""The status page and JSON API over real HTTP, fed by real polls of the lab."""
+
+from __future__ import annotations
+
+import asyncio
+import json
+import os
+import urllib.request
+
+import pytest
+import yaml
+
+from lightwarden.exporters.config import parse_config
+from lightwarden.exporters.http import HttpServer
+from lightwarden.exporters.service import Monitor
+from lightwarden.fixtures.lab.model import LAB_ENV, LAB_SSH_PASSWORD
+from lightwarden.fixtures.lab.server import LabServers, lab_site_config
+from lightwarden.rules.advice import LASER_CAUTION
+
+SEVERITY = {"healthy": 0, "unknown": 1, "near_sensitivity": 2, "near_overload": 2,
+            "warning": 2, "below_sensitivity": 3, "overloaded": 3, "alarm": 3, "dark": 3}
+
+
+@pytest.fixture(scope="module")
+def served():
+    os.environ.update(LAB_ENV)
+    lab = LabServers(speed=0.0)
+    endpoints = lab.start()
+    data = lab_site_config(endpoints)
+    data["alerting"] = {"open_hold_s": 0, "resolve_hold_s": 0}
+    monitor = Monitor(parse_config(yaml.safe_dump(data), "test"))
+
+    async def poll() -> None:
+        try:
+            monitor.build_sources()
+            await monitor.poll_all()
+        finally:
+            monitor.close()
+
+    asyncio.run(poll())
+    server = HttpServer(monitor.exposition, port=0)
+    monitor.mount_pages(server)
+    server.start()
+    try:
+        yield server, monitor
+    finally:
+        server.stop()
+        lab.stop()
+
+
+def _get(url: str) -> tuple[str, bytes]:
+    with urllib.request.urlopen(url, timeout=10) as resp:
+        return resp.headers["Content-Type"], resp.read()
+
+
+def test_api_lists_every_optic_worst_first_with_alerts(served):
+    server, monitor = served
+    ctype, body = _get(server.url + "/api/optics")
+    assert ctype == "application/json"
+    doc = json.loads(body)
+    sev = [SEVERITY[r["condition"]] for r in doc["optics"]]
+    assert sev == sorted(sev, reverse=True) and sev[0] == 3
+    assert {d["device"] for d in doc["devices"]} == {"qm-core-a", "qm-core-b", "qm-dist-a",
+                                                     "qm-dist-b"}
+    assert all(d["up"] for d in doc["devices"])
+    hot = [a for a in doc["alerts"] if a["device"] == "qm-core-a" and a["port"] == "sfp31"]
+    assert hot and "dB" in hot[0]["advice"]
+    assert hot[0]["caution"] == LASER_CAUTION
+
+
+def test_page_shows_worst_first_caution_and_no_secret(served):
+    server, _monitor = served
+    ctype, body = _get(server.url + "/")
+    assert ctype.startswith("text/html")
+    text = body.decode()
+    first_row = text.index("<tr class=crit>")
+    assert first_row < text.index("<tr class=ok>")
+    assert "Laser safety" in text
+    for secret in (*LAB_ENV.values(), LAB_SSH_PASSWORD):
+        assert secret not in text

@@ -54,7 +54,7 @@ def _get(url: str) -> tuple[str, bytes]:
 
 
 def test_api_lists_every_optic_worst_first_with_alerts(served):
-    server, monitor = served
+    server, _monitor = served
     ctype, body = _get(server.url + "/api/optics")
     assert ctype == "application/json"
     doc = json.loads(body)

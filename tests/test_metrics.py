@@ -389,3 +389,23 @@ def test_gzip_body_is_the_same_text(exposition: Exposition) -> None:
     # second scrape reuses the cached device part; the alert member is appended fresh
     exposition.set_alert_source(lambda: [])
     assert gzip.decompress(exposition.body_gzip()) == exposition.body()
+
+
+def test_partial_poll_exports_rows_and_counts_the_error() -> None:
+    exp = Exposition()
+    batch = lab_batch(DEV)
+    partial = PollOutcome(
+        device=DEV,
+        started_at=batch.taken_at,
+        duration_s=2.0,
+        batch=batch,
+        error="dropped after 10 of 12 ports",
+        error_kind="dropped",
+    )
+    exp.update(partial)
+    found = samples(exp.body())
+    assert one(found["lightwarden_device_up"], device=DEV) == 0
+    assert one(found["lightwarden_device_poll_errors_total"], device=DEV, kind="dropped") == 1
+    assert one(found["lightwarden_bias_amperes"], device=DEV, port="Te1/0/1", lane=1) == 0.012
+    # not a success: no last-success time yet
+    assert "lightwarden_device_last_success_timestamp_seconds" not in found

@@ -5,8 +5,9 @@ Each device's poll is turned into sample lines once, when the poll lands
 only concatenates: for every family, its ``# HELP``/``# TYPE`` header once, then every
 device's chunk for that family (the text format wants each family as one contiguous
 group). The concatenated body is itself cached until the next update, so scrapes between
-polls cost a dictionary look-up. Open alerts are small and change on their own clock, so
-they are rendered at scrape time and appended.
+polls cost a dictionary look-up. Each chunk is also kept as its own gzip member, so a
+gzip scrape only joins members (RFC 1952 allows a series of members). Open alerts are
+small and change on their own clock, so they are rendered at scrape time and appended.
 
 Choices (see exporters/README-metrics.md for the catalogue):
 

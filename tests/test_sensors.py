@@ -198,30 +198,30 @@ def test_values_are_finite_floats():
 @pytest.mark.parametrize(
     ("name", "sensor_type", "display", "expected"),
     [
-        ("Eth1/7 Rx Power Lane 3", WATTS, "", (Quantity.RX_POWER, 3)),
-        ("Eth1/7 Tx Power Lane 2", OTHER, "dBm", (Quantity.TX_POWER, 2)),
-        ("Eth1/7 Rx Power", WATTS, "", (Quantity.RX_POWER, 1)),
+        ("sfp7 Rx Power Lane 3", WATTS, "", (Quantity.RX_POWER, 3)),
+        ("sfp7 Tx Power Lane 2", OTHER, "dBm", (Quantity.TX_POWER, 2)),
+        ("sfp7 Rx Power", WATTS, "", (Quantity.RX_POWER, 1)),
         ("eth1/7 RECEIVE power lane 4", WATTS, "", (Quantity.RX_POWER, 4)),
-        ("Eth1/7 Transmit Power", WATTS, "", (Quantity.TX_POWER, 1)),
-        ("Eth1/7 Bias Lane 2", AMPERES, "", (Quantity.BIAS, 2)),
-        ("Eth1/7 Tx Bias Lane 2", AMPERES, "", (Quantity.BIAS, 2)),
-        ("Eth1/7 Temperature", CELSIUS, "", (Quantity.TEMPERATURE, 0)),
-        ("Eth1/7 Temp", OTHER, "C", (Quantity.TEMPERATURE, 0)),
-        ("Eth1/7 Supply Voltage", VOLTS_DC, "", (Quantity.SUPPLY, 0)),
-        ("Eth1/7 Vcc", OTHER, "V", (Quantity.SUPPLY, 0)),
+        ("sfp7 Transmit Power", WATTS, "", (Quantity.TX_POWER, 1)),
+        ("sfp7 Bias Lane 2", AMPERES, "", (Quantity.BIAS, 2)),
+        ("sfp7 Tx Bias Lane 2", AMPERES, "", (Quantity.BIAS, 2)),
+        ("sfp7 Temperature", CELSIUS, "", (Quantity.TEMPERATURE, 0)),
+        ("sfp7 Temp", OTHER, "C", (Quantity.TEMPERATURE, 0)),
+        ("sfp7 Supply Voltage", VOLTS_DC, "", (Quantity.SUPPLY, 0)),
+        ("sfp7 Vcc", OTHER, "V", (Quantity.SUPPLY, 0)),
         # type alone decides temperature, supply and bias
-        ("Eth1/7 sensor 4", CELSIUS, "", (Quantity.TEMPERATURE, 0)),
-        ("Eth1/7 sensor 5", VOLTS_DC, "", (Quantity.SUPPLY, 0)),
-        ("Eth1/7 sensor 6 lane 3", AMPERES, "", (Quantity.BIAS, 3)),
+        ("sfp7 sensor 4", CELSIUS, "", (Quantity.TEMPERATURE, 0)),
+        ("sfp7 sensor 5", VOLTS_DC, "", (Quantity.SUPPLY, 0)),
+        ("sfp7 sensor 6 lane 3", AMPERES, "", (Quantity.BIAS, 3)),
         # power without a direction is not classifiable
-        ("Eth1/7 Power Lane 1", WATTS, "", None),
+        ("sfp7 Power Lane 1", WATTS, "", None),
         # a watts sensor named "temperature" contradicts itself
-        ("Eth1/7 Temperature", WATTS, "", None),
+        ("sfp7 Temperature", WATTS, "", None),
         ("Fan 2", 10, "", None),
     ],
 )
 def test_classify_sensor(name, sensor_type, display, expected):
-    assert classify_sensor(name, sensor_type, display, port_name="Eth1/7") == expected
+    assert classify_sensor(name, sensor_type, display, port_name="sfp7") == expected
 
 
 def test_classify_strips_port_name():

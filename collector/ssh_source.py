@@ -38,8 +38,9 @@ from netmiko.no_enable import NoEnable
 
 from lightwarden.collector.cli_parse import parse_outputs
 from lightwarden.collector.eeprom.hexdump import HexDumpError, parse_hexdump
+from lightwarden.collector.map_facts import MapFacts, apply_map_facts, facts_from_map
 from lightwarden.collector.platforms.platform import Platform
-from lightwarden.collector.readings import PollOutcome
+from lightwarden.collector.readings import PollOutcome, ReadingBatch
 
 T = TypeVar("T")
 
@@ -187,6 +188,13 @@ class SshSource:
     the user's own ~/.ssh/known_hosts). ``read_timeout`` is the limit per command
     (default: the platform's ``read_timeout_s``); ``connect_timeout`` covers TCP, banner
     and authentication. ``max_sessions`` bounds concurrent sessions to this device.
+
+    ``read_maps``: also read each module's memory map with the platform's eeprom command,
+    once per module (port and serial): on the first poll for every fitted module, later
+    only for modules not seen before. The decoded thresholds and Rx power type (see
+    :mod:`lightwarden.collector.map_facts`) are applied to every poll's batch. A map
+    that cannot be read is noted on the optic and not asked for again while the same
+    module stays in; a session failure while reading maps is retried on the next poll.
     """
 
     def __init__(
@@ -204,6 +212,7 @@ class SshSource:
         read_timeout: float | None = None,
         max_sessions: int = 1,
         keep_open: bool = True,
+        read_maps: bool = False,
     ) -> None:
         if max_sessions < 1:
             raise ValueError("max_sessions must be at least 1")
@@ -221,6 +230,10 @@ class SshSource:
         self._credentials = credentials
         self._idle: list[PlatformDriver] = []
         self._sem: tuple[asyncio.AbstractEventLoop, asyncio.Semaphore] | None = None
+        self.read_maps = read_maps and platform.eeprom is not None
+        #: (port, serial) -> facts from that module's map
+        self._maps: dict[tuple[str, str], MapFacts] = {}
+        self.map_reads = 0  # memory maps asked of the device so far
 
     def __repr__(self) -> str:
         return f"SshSource({self.name!r}, {self.host}:{self.port}, platform={self.platform.name!r})"
@@ -250,12 +263,44 @@ class SshSource:
                     error_kind="internal",
                 )
         result = parse_outputs(self.name, self.platform, outputs, now)
+        if self.read_maps and result.batch is not None:
+            await self._apply_maps(result.batch)
         outcome = PollOutcome(self.name, now, time.monotonic() - started, batch=result.batch)
         if result.problems:
             more = f" (and {len(result.problems) - 1} more)" if len(result.problems) > 1 else ""
             outcome.error = f"{self.name}: output not fully understood: {result.problems[0]}{more}"
             outcome.error_kind = "parse"
         return outcome
+
+    async def _apply_maps(self, batch: ReadingBatch) -> None:
+        keys = {o.port: (o.port, o.serial.strip()) for o in batch.optics}
+        missing = [port for port, key in keys.items() if key not in self._maps]
+        if missing:
+            assert self.platform.eeprom is not None
+            commands = {port: self.platform.eeprom.command.format(port=port) for port in missing}
+            try:
+                async with self._semaphore():
+                    texts = await self.workers.run(self._collect, list(commands.values()))
+            except PollFailure:
+                texts = None  # the readings stand; maps are tried again next poll
+            if texts is not None:
+                self.map_reads += len(missing)
+                for port, command in commands.items():
+                    self._maps[keys[port]] = self._facts(command, texts.get(command, ""))
+            for key in [k for k in self._maps if k not in keys.values()]:
+                del self._maps[key]  # modules no longer fitted
+        apply_map_facts(batch, {port: self._maps[key] for port, key in keys.items()
+                                if key in self._maps})
+
+    @staticmethod
+    def _facts(command: str, text: str) -> MapFacts:
+        try:
+            data = parse_hexdump(text)
+        except HexDumpError as exc:
+            first = text.strip().splitlines()[0] if text.strip() else "empty output"
+            reason = first if first.startswith("%") else str(exc)
+            return MapFacts(notes=(f"memory map not read: {command!r}: {reason}",))
+        return facts_from_map(data)
 
     async def read_memory_map(self, port: str) -> MemoryMapOutcome:
         """Fetch one port's module memory map with the platform's eeprom command."""

@@ -60,14 +60,19 @@ def parse_oid(text: str) -> Oid:
     return tuple(int(part) for part in text.strip(".").split("."))
 
 
-def plain(value: object) -> object:
-    """A pyasn1/pysnmp value as plain Python; None for noSuchObject/Instance/endOfMibView."""
+def plain(value: object, octets: bool = False) -> object:
+    """A pyasn1/pysnmp value as plain Python; None for noSuchObject/Instance/endOfMibView.
+
+    Octet strings become text, or the raw bytes with ``octets`` (binary columns such as
+    module memory maps).
+    """
     if isinstance(value, univ.Null):
         return None
     if isinstance(value, univ.Integer):
         return int(value)
     if isinstance(value, univ.OctetString):
-        return bytes(value).decode("utf-8", "replace")
+        raw = bytes(value)
+        return raw if octets else raw.decode("utf-8", "replace")
     if isinstance(value, univ.ObjectIdentifier):
         return ".".join(str(part) for part in value)
     return value
@@ -160,8 +165,10 @@ class SnmpSession:
             "protocol", f"SNMP error from {self.where} while reading {what}: {indication}"
         )
 
-    async def get(self, oids: Sequence[str], what: str) -> dict[str, object]:
-        """GET the given instances; absent ones map to None."""
+    async def get(
+        self, oids: Sequence[str], what: str, *, octets: bool = False
+    ) -> dict[str, object]:
+        """GET the given instances; absent ones map to None. ``octets``: see :func:`plain`."""
         target = await self._get_target(what)
         indication, status, index, varbinds = await get_cmd(
             self.engine,
@@ -181,17 +188,18 @@ class SnmpSession:
             )
         result: dict[str, object] = {oid: None for oid in oids}
         for requested, (_, value) in zip(oids, varbinds, strict=False):
-            result[requested] = plain(value)
+            result[requested] = plain(value, octets)
         return result
 
     async def walk_columns(
-        self, columns: Sequence[str], what: str
+        self, columns: Sequence[str], what: str, *, octets: bool = False
     ) -> dict[str, dict[Oid, object]]:
         """Walk several table columns together with GETBULK.
 
         Returns ``{column: {index suffix: value}}``. Columns may have holes or different
         lengths; rows are matched by index, never by position. A column stops at the
         first OID outside it (lexicographic walking off the end is not done).
+        ``octets`` keeps octet strings as bytes (see :func:`plain`).
         """
         target = await self._get_target(what)
         prefixes = {col: parse_oid(col) for col in columns}
@@ -237,6 +245,6 @@ class SnmpSession:
                         f"{self.where} returned OIDs out of order while reading {what}",
                     )
                 last[col] = oid
-                results[col][oid[len(prefix):]] = plain(value)
+                results[col][oid[len(prefix):]] = plain(value, octets)
             active = [col for col in active if col not in finished]
         raise SnmpError("protocol", f"{self.where}: walk of {what} did not end")

@@ -6,7 +6,14 @@ import dataclasses
 import logging
 import time
 
-from lightwarden.collector.readings import BatchBuilder, PollOutcome, ReadingBatch, ReadingStatus
+from lightwarden.collector.map_facts import MapFacts, apply_to_identity, facts_from_map, join_note
+from lightwarden.collector.readings import (
+    BatchBuilder,
+    PollOutcome,
+    Quantity,
+    ReadingBatch,
+    ReadingStatus,
+)
 from lightwarden.collector.sensors import sensor_value
 from lightwarden.collector.snmp.credentials import SnmpCredentials
 from lightwarden.collector.snmp.inventory import (
@@ -25,11 +32,13 @@ from lightwarden.collector.snmp.inventory import (
     PmdNames,
     build_inventory,
 )
-from lightwarden.collector.snmp.session import EnginePool, SnmpError, SnmpSession
+from lightwarden.collector.snmp.session import EnginePool, SnmpError, SnmpSession, parse_oid
 
 log = logging.getLogger(__name__)
 
 IF_UP = 1  # IF-MIB ifAdminStatus/ifOperStatus up(1)
+#: Memory maps fetched per GET when only a few modules are new (a map is up to 896 bytes).
+MAP_GET_CHUNK = 4
 
 
 def _up(value: object) -> bool | None:
@@ -52,6 +61,13 @@ class SnmpSource:
 
     Pass one shared :class:`EnginePool` for all sources on an event loop; without one
     the source makes its own (close it with :meth:`close`).
+
+    ``eeprom_oid`` names a column (indexed by ifIndex) holding each module's memory map
+    as an OCTET STRING in our binary layout (e.g. the lab's ``1.3.6.1.4.1.32473.7.1.1``).
+    Maps are read at discovery only, and only for modules (ifIndex, serial) not read
+    before: thresholds and identity do not change while a module stays in its port, and
+    a swapped module changes the entity tree, which triggers a rediscovery. A failed map
+    read does not fail the poll; it is tried again on the next poll.
     """
 
     def __init__(
@@ -66,6 +82,7 @@ class SnmpSource:
         pmd_names: PmdNames = (),
         engines: EnginePool | None = None,
         max_repetitions: int = 25,
+        eeprom_oid: str | None = None,
     ) -> None:
         self._name = name
         self._own_engines = engines is None
@@ -82,6 +99,12 @@ class SnmpSource:
         self._pmd_names = pmd_names
         self._inventory: Inventory | None = None
         self.discoveries = 0  # how many times the device was (re)discovered
+        self._eeprom_oid = ".".join(map(str, parse_oid(eeprom_oid))) if eeprom_oid else None
+        #: (ifIndex, serial) -> facts from that module's map; kept across rediscoveries
+        self._maps: dict[tuple[int, str], MapFacts] = {}
+        self._maps_pending = False  # maps still to be read for the current inventory
+        self._map_notes: dict[int, tuple[str, ...]] = {}  # ifIndex -> notes for Rx rows
+        self.map_reads = 0  # memory maps fetched from the device so far
 
     @property
     def name(self) -> str:
@@ -147,6 +170,8 @@ class SnmpSource:
             inventory = await self._discover(uptime, last_change)
         else:
             inventory.sys_uptime = uptime
+        if self._maps_pending:
+            await self._read_maps(inventory)
         live = await session.walk_columns(
             (*SENSOR_LIVE_COLUMNS, *IF_STATUS_COLUMNS), "sensor values and interface status"
         )
@@ -169,10 +194,65 @@ class SnmpSource:
             last_change=last_change,
         )
         self._inventory = inventory
+        self._maps_pending = self._eeprom_oid is not None
+        self._map_notes = {}
         self.discoveries += 1
         log.debug("%s: discovered %d optics, %d sensors", self._name, len(inventory.optics),
                   inventory.sensor_count)  # fmt: skip
         return inventory
+
+    async def _read_maps(self, inventory: Inventory) -> None:
+        """Fetch the maps of modules not seen before and apply every module's facts."""
+        column = self._eeprom_oid
+        assert column is not None
+        keyed = {
+            spec.identity.if_index: (spec.identity.if_index, spec.identity.serial.strip())
+            for spec in inventory.optics
+            if spec.identity.if_index is not None
+        }
+        missing = [idx for idx, key in keyed.items() if key not in self._maps]
+        try:
+            found = await self._fetch_maps(column, missing, len(missing) == len(keyed))
+        except SnmpError as exc:
+            log.info("%s: memory maps not read (%s); trying again next poll", self._name,
+                     exc.message)
+            return
+        for idx in missing:
+            data = found.get(idx)
+            if isinstance(data, bytes) and data:
+                self._maps[keyed[idx]] = facts_from_map(data)
+            else:
+                self._maps[keyed[idx]] = MapFacts(
+                    notes=(f"no memory map at {column}.{idx}",))
+        self.map_reads += len(missing)
+        # Forget modules no longer fitted, so the cache follows the device.
+        live_keys = set(keyed.values())
+        for key in [k for k in self._maps if k not in live_keys]:
+            del self._maps[key]
+        for spec in inventory.optics:
+            idx = spec.identity.if_index
+            if idx is None:
+                continue
+            notes = apply_to_identity(spec.identity, self._maps[keyed[idx]])
+            if notes:
+                self._map_notes[idx] = notes
+        self._maps_pending = False
+
+    async def _fetch_maps(
+        self, column: str, if_indexes: list[int], everything: bool
+    ) -> dict[int, object]:
+        if not if_indexes:
+            return {}
+        what = f"module memory maps ({column})"
+        if everything or len(if_indexes) > 4 * MAP_GET_CHUNK:
+            table = await self._session.walk_columns([column], what, octets=True)
+            return {index[0]: v for index, v in table[column].items() if len(index) == 1}
+        found: dict[int, object] = {}
+        for start in range(0, len(if_indexes), MAP_GET_CHUNK):
+            chunk = if_indexes[start : start + MAP_GET_CHUNK]
+            got = await self._session.get([f"{column}.{i}" for i in chunk], what, octets=True)
+            found.update({i: got[f"{column}.{i}"] for i in chunk})
+        return found
 
     def _build(self, inventory: Inventory, live: dict, now: float) -> ReadingBatch:
         values, statuses = live[SENSOR_VALUE], live[SENSOR_STATUS]
@@ -205,6 +285,8 @@ class SnmpSource:
                     sensor.units_display,
                     statuses.get(key, 1),
                 )
+                if sensor.quantity is Quantity.RX_POWER and identity.if_index in self._map_notes:
+                    note = join_note(note, self._map_notes[identity.if_index])
                 builder.add(slot, sensor.lane, sensor.quantity, value, status, note)
         if vanished:
             self._inventory = None  # the layout changed under us: look again next time

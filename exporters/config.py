@@ -8,6 +8,7 @@ file, never its content, and pydantic's input echo is switched off throughout.
 from __future__ import annotations
 
 import os
+import re
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
@@ -122,6 +123,18 @@ class Device(_Model):
     known_hosts: str | None = None  # SSH: overrides ssh.known_hosts
     #: PMD per port when the device does not say (port name -> IEEE PMD name)
     pmd: dict[str, str] = Field(default_factory=dict)
+    #: SNMP: column (indexed by ifIndex) holding each module's memory map as an OCTET
+    #: STRING, e.g. "1.3.6.1.4.1.32473.7.1.1" on the lab; read at discovery.
+    eeprom_oid: str | None = None
+    #: SSH: read each module's memory map once (needs the platform's eeprom command).
+    read_maps: bool = False
+
+    @field_validator("eeprom_oid")
+    @classmethod
+    def _numeric_oid(cls, v: str | None) -> str | None:
+        if v is not None and not re.fullmatch(r"\.?[0-9]+(\.[0-9]+)+", v.strip()):
+            raise ValueError("not a numeric OID such as 1.3.6.1.4.1.32473.7.1.1")
+        return v.strip().lstrip(".") if v is not None else None
 
 
 class Poll(_Model):
@@ -262,6 +275,12 @@ def reference_problems(cfg: SiteConfig) -> list[tuple[tuple[Any, ...], str]]:
             problems.append((where, f"device uses snmp but {d.credentials!r} is ssh"))
         if d.protocol == "ssh" and not d.platform:
             problems.append((("devices", i, "protocol"), "ssh devices need a 'platform'"))
+        if d.protocol == "ssh" and d.eeprom_oid is not None:
+            problems.append((("devices", i, "eeprom_oid"),
+                             "eeprom_oid is for snmp devices; ssh devices use read_maps"))
+        if d.protocol == "snmp" and d.read_maps:
+            problems.append((("devices", i, "read_maps"),
+                             "read_maps is for ssh devices; snmp devices use eeprom_oid"))
     for i, o in enumerate(cfg.overrides):
         if o.port is not None and o.port.split()[0] not in seen:
             problems.append((("overrides", i, "port"), f"no device named {o.port.split()[0]!r}"))

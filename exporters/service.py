@@ -165,7 +165,8 @@ class Monitor:
                         )
                     sources.append(
                         SnmpSource(d.name, d.host, creds, port=d.port or 161, timeout=timeout,
-                                   retries=retries, pmd_names=pmd_names, engines=self._engines)
+                                   retries=retries, pmd_names=pmd_names, engines=self._engines,
+                                   eeprom_oid=d.eeprom_oid)
                     )
                 else:
                     ssh = cred.ssh
@@ -197,6 +198,7 @@ class Monitor:
                             connect_timeout=max(timeout, 5.0),
                             read_timeout=cfg.ssh.read_timeout_s,
                             max_sessions=cfg.poll.ssh_per_device,
+                            read_maps=d.read_maps,
                         )
                     )
             except (ConfigError, CredentialsError, PlatformError) as exc:

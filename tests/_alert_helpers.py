@@ -18,7 +18,7 @@ CAUTION = (
 def make_event(
     kind: str = "open",
     sequence: int = 1,
-    key: str = "hg-core-01/Eth1/7/0/rx_power/OpticRxNearOverload",
+    key: str = "hg-core-01/sfp7/0/rx_power/OpticRxNearOverload",
     at: float = 1_700_000_000.0,
     **over,
 ) -> AlertEvent:
@@ -30,7 +30,7 @@ def make_event(
         alertname="OpticRxNearOverload",
         severity="warning",
         device="hg-core-01",
-        port="Eth1/7",
+        port="sfp7",
         lane=0,
         quantity="rx_power",
         condition="near_overload",
@@ -41,7 +41,7 @@ def make_event(
         window_source="module",
         margin_db=0.9,
         rate_per_day=0.05,
-        summary="Rx on hg-core-01 Eth1/7 is 0.9 dB from overload",
+        summary="Rx on hg-core-01 sfp7 is 0.9 dB from overload",
         advice="Fit a 5 dB attenuator (pad) at the receiver.",
         caution=CAUTION,
         starts_at=at - 60 * (sequence - 1),

@@ -46,8 +46,8 @@ def make_fleet(optics: int, per_device: int, seed: int = 7) -> list[tuple[PollOu
             o = b.add_optic(
                 OpticIdentity(
                     device=name,
-                    port=f"Eth1/{p + 1}",
-                    alias=f"to hg-sw-{(d + 1) % devices:05d} Eth1/{p + 1}",
+                    port=f"sfp{p + 1}",
+                    alias=f"to hg-sw-{(d + 1) % devices:05d} sfp{p + 1}",
                     form_factor="QSFP28" if quad else "SFP+",
                     pmd="100GBASE-LR4" if quad else "10GBASE-LR",
                     wavelength_nm=1304.5 if quad else 1310.0,

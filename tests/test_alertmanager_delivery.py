@@ -117,7 +117,7 @@ def test_open_then_resolve_reaches_webhook_receiver(tmp_path, alertmanager, hook
         "alertname": "OpticRxNearOverload",
         "severity": "warning",
         "device": "hg-core-01",
-        "port": "Eth1/7",
+        "port": "sfp7",
         "lane": "0",
         "quantity": "rx_power",
         "site": "harrowgate-lab",

@@ -88,15 +88,15 @@ def _rows(outcome: PollOutcome) -> dict[tuple[str, Quantity, int], tuple]:
 def test_unavailable_and_garbage_rows(agent):
     outcome = run(_poll(agent.port, SnmpCredentials.v2c(agent.community), 2.0, 1))
     rows = _rows(outcome)
-    # dataset: Eth1/2 bias lane 4 has entPhySensorOperStatus unavailable(2), value 0
-    status, _, note = rows[("Eth1/2", Quantity.BIAS, 4)]
+    # dataset: sfp2 bias lane 4 has entPhySensorOperStatus unavailable(2), value 0
+    status, _, note = rows[("sfp2", Quantity.BIAS, 4)]
     assert status is ReadingStatus.UNAVAILABLE and "unavailable" in note
-    # dataset: Eth1/2 Tx power lane 4 is an OctetString "-7.91" where an Integer belongs
-    status, _, note = rows[("Eth1/2", Quantity.TX_POWER, 4)]
+    # dataset: sfp2 Tx power lane 4 is an OctetString "-7.91" where an Integer belongs
+    status, _, note = rows[("sfp2", Quantity.TX_POWER, 4)]
     assert status is ReadingStatus.INVALID and "-7.91" in note and "not an integer" in note
     # the rest of the optic is still read
-    assert rows[("Eth1/2", Quantity.TX_POWER, 3)][0] is ReadingStatus.OK
-    assert rows[("Eth1/2", Quantity.TEMPERATURE, 0)][0] is ReadingStatus.OK
+    assert rows[("sfp2", Quantity.TX_POWER, 3)][0] is ReadingStatus.OK
+    assert rows[("sfp2", Quantity.TEMPERATURE, 0)][0] is ReadingStatus.OK
 
 
 def test_rediscovers_after_agent_restart_and_inventory_change(tmp_path):
@@ -117,7 +117,7 @@ def test_rediscovers_after_agent_restart_and_inventory_change(tmp_path):
                 b = await source.poll(2.0)
                 assert (a.ok, b.ok, source.discoveries) == (True, True, 1)
                 first.stop()
-                # restarted with a new part in Eth1/1: new serial, entLastChangeTime moved
+                # restarted with a new part in sfp1: new serial, entLastChangeTime moved
                 second = await asyncio.to_thread(
                     start_snmpd, tmp_path / "b", like=first, replace={
                         '1.3.6.1.2.1.47.1.4.1.0 timeticks 4200':

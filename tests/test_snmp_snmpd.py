@@ -81,7 +81,7 @@ def test_collector_agrees_with_net_snmp_cli(agent, version):
         else SnmpCredentials.v2c(agent.community)
     )
     expected = expected_from_cli(agent, v3=v3)
-    assert len(expected) == 19  # 5 sensors on Eth1/1 + 14 on Eth1/2; the fan is not an optic
+    assert len(expected) == 19  # 5 sensors on sfp1 + 14 on sfp2; the fan is not an optic
     first, second = poll_once(agent, credentials, polls=2)
     assert_agrees(first, expected)
     assert_agrees(second, expected)
@@ -102,12 +102,12 @@ def test_spot_values_from_the_dataset(agent):
     # 0.5 mW = -3.010 dBm; contract encoding (b) -1440 = -14.40 dBm
     (outcome,) = poll_once(agent, SnmpCredentials.v2c(agent.community))
     rows = rows_by_key(outcome)
-    assert rows[("Eth1/1", Quantity.RX_POWER, 1)][1] == pytest.approx(-8.20, abs=0.005)
-    assert rows[("Eth1/1", Quantity.TX_POWER, 1)][1] == pytest.approx(-3.010, abs=0.0005)
-    assert rows[("Eth1/2", Quantity.RX_POWER, 4)][1] == pytest.approx(-14.40)
-    assert rows[("Eth1/2", Quantity.RX_POWER, 3)][0] is ReadingStatus.NO_LIGHT
-    assert rows[("Eth1/2", Quantity.TX_POWER, 4)][0] is ReadingStatus.INVALID
-    assert rows[("Eth1/2", Quantity.BIAS, 4)][0] is ReadingStatus.UNAVAILABLE
+    assert rows[("sfp1", Quantity.RX_POWER, 1)][1] == pytest.approx(-8.20, abs=0.005)
+    assert rows[("sfp1", Quantity.TX_POWER, 1)][1] == pytest.approx(-3.010, abs=0.0005)
+    assert rows[("sfp2", Quantity.RX_POWER, 4)][1] == pytest.approx(-14.40)
+    assert rows[("sfp2", Quantity.RX_POWER, 3)][0] is ReadingStatus.NO_LIGHT
+    assert rows[("sfp2", Quantity.TX_POWER, 4)][0] is ReadingStatus.INVALID
+    assert rows[("sfp2", Quantity.BIAS, 4)][0] is ReadingStatus.UNAVAILABLE
 
 
 def test_optic_identities(agent):
@@ -119,7 +119,7 @@ def test_optic_identities(agent):
     assert (sfp.form_factor, sfp.pmd, sfp.pmd_source) == ("SFP+", "10GBASE-LR", "entity")
     assert (sfp.part_number, sfp.serial) == ("HGW-SFP10-LR", "HGW10LR00017")
     assert (sfp.oper_up, sfp.admin_up, sfp.lanes) == (True, True, 1)
-    assert (qsfp.port, qsfp.if_index, qsfp.form_factor) == ("Eth1/2", 2, "QSFP28")
+    assert (qsfp.port, qsfp.if_index, qsfp.form_factor) == ("sfp2", 2, "QSFP28")
     assert qsfp.pmd == "100GBASE-LR4"  # longest known name wins over "100GBASE-LR"
     assert (qsfp.oper_up, qsfp.admin_up, qsfp.lanes) == (False, True, 4)
     assert {o.device for o in outcome.batch.optics} == {"hgl-edge-02"}

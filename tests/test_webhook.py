@@ -35,7 +35,7 @@ def stream(n_keys: int = 2, steps: int = 3):
     for seq in range(1, steps + 1):
         for k in range(n_keys):
             kind = "open" if seq == 1 else ("resolve" if seq == steps else "update")
-            events.append(make_event(kind, seq, key=f"hg-agg-0{k}/Eth1/{k}/0/rx/OpticRx"))
+            events.append(make_event(kind, seq, key=f"hg-agg-0{k}/sfp{k}/0/rx/OpticRx"))
     return events
 
 

@@ -276,6 +276,8 @@ def cmd_demo(args: argparse.Namespace) -> int:
         print(f"  status:  {server.url}/", flush=True)
         if args.alertmanager:
             print(f"  alerts to: {args.alertmanager}", flush=True)
+        if args.webhook:
+            print("  alert events to the webhook given", flush=True)
         stop = _Stop()
         stop.install()
         try:

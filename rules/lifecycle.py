@@ -17,6 +17,7 @@ from dataclasses import asdict, dataclass, field, replace
 from typing import Any
 
 import numpy as np
+
 from lightwarden.collector.readings import Quantity, ReadingBatch
 from lightwarden.rules.advice import (
     AdviceContext,

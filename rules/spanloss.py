@@ -14,6 +14,7 @@ import re
 from dataclasses import dataclass
 
 import numpy as np
+
 from lightwarden.collector.readings import OpticIdentity, Quantity, ReadingBatch, ReadingStatus
 
 SINGLEMODE = frozenset({"OS1", "OS1A", "OS2"})

@@ -11,6 +11,7 @@ import math
 from collections.abc import Sequence
 
 import numpy as np
+
 from lightwarden.collector.readings import (
     BatchBuilder,
     OpticIdentity,

@@ -6,6 +6,7 @@ import math
 
 import pytest
 from _assessments import ER_OVERLOAD, ER_SENSITIVITY
+
 from lightwarden.collector.readings import Quantity
 from lightwarden.rules.advice import (
     LASER_CAUTION,

@@ -18,6 +18,7 @@ from _assessments import (
     empty_assessment,
     rx_assessment,
 )
+
 from lightwarden.collector.readings import BatchBuilder, OpticIdentity, Quantity
 from lightwarden.rules.advice import LASER_CAUTION, AdviceContext
 from lightwarden.rules.findings import Condition

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+
 from lightwarden.collector.readings import (
     BatchBuilder,
     OpticIdentity,

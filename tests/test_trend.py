@@ -6,6 +6,7 @@ import math
 
 import numpy as np
 import pytest
+
 from lightwarden.rules.trend import (
     SECONDS_PER_DAY,
     WearLimits,

@@ -222,6 +222,7 @@ def cmd_run(args: argparse.Namespace) -> int:
     cfg, base = _load(args.config)
     monitor = Monitor(cfg, base_dir=base)
     monitor.build_sources()
+    monitor.open_history()
     server = _start_http(monitor, cfg.listen.host, cfg.listen.port)
     alerting = _start_alerting(monitor, cfg, base)
     print(f"lightwarden: {len(cfg.devices)} devices; metrics at {server.url}/metrics", flush=True)
@@ -248,7 +249,9 @@ def cmd_demo(args: argparse.Namespace) -> int:
     lab = LabServers(speed=args.speed, base_port=0)
     endpoints = lab.start()
     try:
-        data = lab_site_config(endpoints, interval_s=args.interval)
+        data = lab_site_config(endpoints, interval_s=args.interval, lab=lab.lab)
+        data["history"] = {"path": str(Path(args.state_dir) / "history.sqlite"),
+                           "sample_every_s": args.interval}
         data["listen"] = {"host": "127.0.0.1", "port": args.port}
         # Short holds so the scripted stories show within minutes of wall time.
         data["conditions"] = {"hold_s": args.hold, "clear_hold_s": 2 * args.hold,
@@ -264,6 +267,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
         cfg = parse_config(yaml.safe_dump(data), "(demo)")
         monitor = Monitor(cfg, base_dir=Path.cwd())
         monitor.build_sources()
+        monitor.open_history()
         server = _start_http(monitor, cfg.listen.host, cfg.listen.port)
         alert_runner = _start_alerting(monitor, cfg, Path.cwd())
         n_optics = len(lab.lab.optic_ports())
@@ -313,6 +317,31 @@ def cmd_lab(args: argparse.Namespace) -> int:
                 break
     finally:
         lab.stop()
+    return EXIT_OK
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    from lightwarden.exporters.report import build_report, render_report, report_json
+    from lightwarden.exporters.service import Monitor
+
+    cfg, base = _load(args.config)
+    monitor = Monitor(cfg, base_dir=base, alerts=False)
+    path = Path(cfg.history.path)
+    if not path.is_absolute():
+        path = base / path
+    if not path.exists():
+        raise ConfigError(f"history.path {path}: no history yet (run `lightwarden run` first)")
+    history = monitor.open_history()
+    assert history is not None
+    try:
+        report = build_report(history, monitor.plant_with_history(), monitor.targets,
+                              time.time(), days=args.days)
+    finally:
+        monitor.close()
+    if args.json:
+        print(json.dumps(report_json(report), indent=2))
+    else:
+        print(render_report(report))
     return EXIT_OK
 
 
@@ -389,6 +418,12 @@ def build_parser() -> argparse.ArgumentParser:
     lab.add_argument("--known-hosts", default="var/lab_known_hosts",
                      help="where to write the lab's SSH host keys")
     lab.set_defaults(func=cmd_lab)
+
+    rep = sub.add_parser("report", help="planners' report: ageing links, forecasts, span loss")
+    rep.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    rep.add_argument("--days", type=float, default=90.0, help="history to fit (default 90)")
+    rep.add_argument("--json", action="store_true")
+    rep.set_defaults(func=cmd_report)
 
     dec = sub.add_parser("decode", help="decode a module memory map (binary or hex dump)")
     dec.add_argument("file", metavar="FILE")

@@ -210,6 +210,8 @@ class Span(_Model):
     connectors: int = Field(default=2, ge=0)
     splices: int = Field(default=0, ge=0)
     pad_db: float = Field(default=0.0, ge=0)
+    #: the wavelength the loss is judged at; default: the middle of the optics' PMD band
+    wavelength_nm: float | None = Field(default=None, gt=0)
 
 
 class Destination(_Model):
@@ -239,6 +241,9 @@ class Listen(_Model):
 class History(_Model):
     path: str = "var/lightwarden-history.sqlite"
     keep_days: float = Field(default=400.0, gt=0)
+    #: keep at most one sample per device this often (trends need hours, not seconds)
+    sample_every_s: float = Field(default=900.0, gt=0)
+    enabled: bool = True
 
 
 class SiteConfig(_Model):

@@ -14,6 +14,8 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
+
 from lightwarden.collector.platforms.platform import PlatformError, load_platform
 from lightwarden.collector.readings import PollOutcome, Quantity
 from lightwarden.collector.schedule import PollScheduler
@@ -23,15 +25,26 @@ from lightwarden.collector.snmp.source import SnmpSource
 from lightwarden.collector.source import PollSource
 from lightwarden.collector.ssh_source import SshCredentials, SshSource, SshWorkers
 from lightwarden.exporters.config import ConfigError, SiteConfig
+from lightwarden.exporters.history import History, HistoryError, RxWindow
 from lightwarden.exporters.metrics import Exposition
+from lightwarden.exporters.plant import build_plant
+from lightwarden.exporters.report import advice_context
+from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets, assess
 from lightwarden.rules.catalogue import Catalogue, PmdSpec, default_catalogue
-from lightwarden.rules.findings import AlertEvent, Assessment
+from lightwarden.rules.findings import AlertEvent, Assessment, Condition, WindowSource
 from lightwarden.rules.hysteresis import ConditionTracker, HysteresisPolicy
 from lightwarden.rules.lifecycle import AlertLifecycle, LifecycleConfig
 from lightwarden.rules.windows import WindowOverride, WindowResolver
 
 log = logging.getLogger("lightwarden.service")
+
+_SEVERITY = np.array([c.severity for c in sorted(Condition)], dtype=np.int8)
+_AGEING = (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS)
+
+
+def _edge(x: float) -> float | None:
+    return None if np.isnan(x) else float(x)
 
 
 def build_catalogue(cfg: SiteConfig) -> Catalogue:
@@ -126,6 +139,8 @@ class Monitor:
             margin_target_overload_db=self.targets.overload_db,
             margin_target_sensitivity_db=self.targets.sensitivity_db,
         )
+        self.plant = build_plant(cfg, self.catalogue)
+        self.history: History | None = None
         self.views: dict[str, DeviceView] = {}
         self.open_alerts: dict[str, AlertEvent] = {}
         self.alert_sink: Callable[[list[AlertEvent]], None] | None = None
@@ -207,7 +222,31 @@ class Monitor:
         self.sources = sources
         return sources
 
+    def open_history(self) -> History | None:
+        """Start keeping reading history (for trends, advice and the planners' report)."""
+        h = self.cfg.history
+        if not h.enabled:
+            return None
+        path = Path(h.path)
+        if not path.is_absolute():
+            path = self.base_dir / path
+        try:
+            self.history = History(path, every_s=h.sample_every_s, keep_days=h.keep_days)
+        except HistoryError as exc:
+            raise ConfigError(f"history.path: {exc}") from None
+        return self.history
+
+    def plant_with_history(self):  # -> Plant
+        """The plant, with span wavelengths taken from the PMDs the history has seen."""
+        if self.history is None:
+            return self.plant
+        pmd_of = {(w.device, w.port): w.pmd for w in self.history.rx_windows()}
+        return build_plant(self.cfg, self.catalogue, pmd_of)
+
     def close(self) -> None:
+        if self.history is not None:
+            self.history.close()
+            self.history = None
         for s in self.sources:
             close = getattr(s, "close", None)
             if close is not None:
@@ -232,8 +271,10 @@ class Monitor:
         if outcome.batch is not None:
             assessment = assess(outcome.batch, targets=self.targets, tracker=self.tracker,
                                 now=now, resolver=self.resolver)
+            if self.history is not None:
+                self._record(assessment)
             if self._alerts_enabled:
-                events = self.lifecycle.observe(assessment, now)
+                events = self.lifecycle.observe(assessment, now, self._context(assessment, now))
         elif self._alerts_enabled:
             events = self.lifecycle.mark_stale(outcome.device, now)
         self.exposition.update(outcome, assessment)
@@ -243,6 +284,37 @@ class Monitor:
             if self.alert_sink is not None:
                 self.alert_sink(events)
         return view
+
+    def _record(self, a: Assessment) -> None:
+        assert self.history is not None
+        b = a.batch
+        rx = np.flatnonzero(b.quantity == int(Quantity.RX_POWER))
+        windows = [
+            RxWindow(b.device, b.optics[int(b.optic[i])].port, int(b.lane[i]),
+                     b.optics[int(b.optic[i])].pmd, _edge(a.low_edge[i]), _edge(a.high_edge[i]),
+                     WindowSource(int(a.window_source[i])).word, b.taken_at)
+            for i in rx
+        ]
+        try:
+            self.history.record(b, windows)
+        except HistoryError as exc:
+            log.error("%s", exc)  # monitoring goes on; the history has a gap
+
+    def _context(self, a: Assessment, now: float) -> dict[tuple[str, int, Quantity],
+                                                           AdviceContext]:
+        """History facts for the rows that may alert (few per poll), none for the rest."""
+        if self.history is None:
+            return {}
+        out: dict[tuple[str, int, Quantity], AdviceContext] = {}
+        b = a.batch
+        for i in np.flatnonzero(_SEVERITY[a.condition.astype(np.int64)] >= 2):
+            q = Quantity(int(b.quantity[i]))
+            if q not in _AGEING:
+                continue
+            port, lane = b.optics[int(b.optic[i])].port, int(b.lane[i])
+            out[(port, lane, q)] = advice_context(self.history, self.plant, b.device, port,
+                                                  lane, q, now)
+        return out
 
     def _track(self, events: list[AlertEvent]) -> None:
         for e in events:

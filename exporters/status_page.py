@@ -25,6 +25,8 @@ class StatusPage:
     def mount(self, server: HttpServer) -> None:
         server.add_route("/", self.page)
         server.add_route("/api/optics", self.api)
+        server.add_route("/report", self.report_text)
+        server.add_route("/api/report", self.report_api)
 
     def rows(self) -> tuple[list[OpticRow], list[dict[str, object]]]:
         rows: list[OpticRow] = []
@@ -51,6 +53,30 @@ class StatusPage:
         ]
         doc = {"devices": devices, "optics": [r.as_json() for r in rows], "alerts": alerts}
         return 200, "application/json", json.dumps(doc).encode()
+
+    def _report(self):  # -> PlannerReport | None
+        from lightwarden.exporters.report import build_report
+
+        m = self.monitor
+        if m.history is None:
+            return None
+        return build_report(m.history, m.plant_with_history(), m.targets, time.time())
+
+    def report_text(self, _req: HttpRequest) -> Response:
+        from lightwarden.exporters.report import render_report
+
+        report = self._report()
+        if report is None:
+            return 404, "text/plain; charset=utf-8", b"no history kept by this monitor\n"
+        return 200, "text/plain; charset=utf-8", render_report(report, limit=500).encode()
+
+    def report_api(self, _req: HttpRequest) -> Response:
+        from lightwarden.exporters.report import report_json
+
+        report = self._report()
+        if report is None:
+            return 404, "application/json", b'{"error": "no history kept by this monitor"}'
+        return 200, "application/json", json.dumps(report_json(report)).encode()
 
     def page(self, _req: HttpRequest) -> Response:
         rows, devices = self.rows()

@@ -6,7 +6,7 @@ before opening and before resolving, a step below which a moving value is not wo
 update, a separate "stale" state for devices that stopped answering, and a per-key
 sequence so that (key, sequence) is an idempotency key for delivery. The state is plain
 data and round-trips through a JSON-safe dict, so a restarted service neither reopens
-nor duplicates alerts. States and transitions: rules/README-lifecycle.md.
+nor duplicates alerts. States and transitions: DEVELOPERS.md, "Alert lifecycle".
 """
 
 from __future__ import annotations
@@ -40,7 +40,7 @@ UPDATE = "update"
 STALE = "stale"
 RESOLVE = "resolve"
 
-# Phases of one key's track (see README-lifecycle.md for the table).
+# Phases of one key's track (see DEVELOPERS.md for the table).
 PENDING = "pending"  # condition seen, open hold running, nothing sent yet
 FIRING = "firing"  # open sent, condition present
 CLEARING = "clearing"  # open sent, condition gone, resolve hold running

@@ -26,6 +26,10 @@ from lightwarden.rules.trend import fit_trend, forecast_crossing, laser_wear
 DAY = 86400.0
 #: samples at each end of a history compared for span loss growth
 GROWTH_SAMPLES = 5
+#: a trend drawn through less history than this is noise, not ageing: with DDM
+#: readings good to a few tenths of a dB between samples, hours say nothing about months
+MIN_TREND_SPAN_S = DAY
+MIN_TREND_SAMPLES = 10
 
 
 def _span_losses(tx: Series, rx: Series) -> np.ndarray:
@@ -40,12 +44,16 @@ def _span_losses(tx: Series, rx: Series) -> np.ndarray:
     return np.interp(rx.times[inside], tx.times, tx.values) - rx.values[inside]
 
 
+def _enough(s: Series) -> bool:
+    return len(s) >= MIN_TREND_SAMPLES and float(s.times[-1] - s.times[0]) >= MIN_TREND_SPAN_S
+
+
 def advice_context(history: History, plant: Plant | None, device: str, port: str, lane: int,
                    quantity: Quantity, now: float, days: float = 30.0) -> AdviceContext:
     """What history says about one reading: its rate, the feeding laser, the span."""
     since = now - days * DAY
     own = history.series(device, port, lane, quantity, since)
-    trend = fit_trend(own.times, own.values)
+    trend = fit_trend(own.times, own.values) if _enough(own) else None
     rate = trend.rate_per_day if trend is not None else None
     wear = growth = None
     wear_end = "near"
@@ -87,6 +95,7 @@ class LaneOutlook:
     edge_reached_at: float | None
     laser_worn: bool | None
     laser_note: str
+    history_note: str = ""
 
 
 @dataclass(slots=True)
@@ -111,7 +120,12 @@ class PlannerReport:
 def _outlook(history: History, plant: Plant | None, w: RxWindow, targets: MarginTargets,
              now: float, since: float, horizon_s: float) -> LaneOutlook:
     rx = history.series(w.device, w.port, w.lane, Quantity.RX_POWER, since)
-    trend = fit_trend(rx.times, rx.values)
+    span_s = float(rx.times[-1] - rx.times[0]) if len(rx) else 0.0
+    enough = _enough(rx)
+    trend = fit_trend(rx.times, rx.values) if enough else None
+    note = "" if enough else (f"history too short for a trend ({len(rx)} samples over "
+                              f"{span_s / 3600:.1f} h; needs {MIN_TREND_SAMPLES} over "
+                              f"{MIN_TREND_SPAN_S / 3600:.0f} h)")
     target_at = edge_at = None
     if trend is not None and trend.slope_per_s < 0 and w.sensitivity is not None:
         target_at = forecast_crossing(rx.times, rx.values, w.sensitivity + targets.sensitivity_db,
@@ -133,6 +147,7 @@ def _outlook(history: History, plant: Plant | None, w: RxWindow, targets: Margin
         laser_worn=ctx.wear.worn if ctx.wear is not None else None,
         laser_note=(f"{ctx.wear_end} end: {ctx.wear.reason}" if ctx.wear is not None
                     else "far end unknown (no plant record)"),
+        history_note=note,
     )
 
 
@@ -195,7 +210,7 @@ def render_report(report: PlannerReport, limit: int = 50) -> str:
             f"{o.device:<12.12} {o.port:<7.7} {o.lane:>1} {o.pmd or '?':<13.13} "
             f"{_f(o.rx_power_dbm):>7} {_f(o.rate_db_per_day, 3):>7} "
             f"{_date(o.target_lost_at):>11} {_date(o.edge_reached_at):>10} {o.samples:>4}  "
-            + ("worn: " if o.laser_worn else "") + o.laser_note
+            + (o.history_note or (("worn: " if o.laser_worn else "") + o.laser_note))
         )
     if len(report.lanes) > limit:
         out.append(f"... and {len(report.lanes) - limit} more lanes (use --json for all)")

@@ -170,3 +170,17 @@ def run(argv: Sequence[str], cwd: Path | None = None, timeout: float = 60.0):
     return subprocess.run(
         list(argv), cwd=cwd, capture_output=True, text=True, timeout=timeout, check=False
     )
+
+
+def alertmanager_argv(binary: str, config: Path, storage: Path, port: int,
+                      *extra: str) -> list[str]:
+    """A loopback Alertmanager with clustering off (no gossip port), for tests."""
+    return [
+        binary,
+        f"--config.file={config}",
+        f"--storage.path={storage}",
+        f"--web.listen-address={LOOPBACK}:{port}",
+        f"--web.external-url=http://{LOOPBACK}:{port}/",
+        "--cluster.listen-address=",
+        *extra,
+    ]

@@ -15,7 +15,7 @@ from datetime import datetime
 
 import pytest
 from _alert_helpers import Receiver, make_event
-from _procs import LOOPBACK, require_binary, start_on_free_port, wait_for
+from _procs import LOOPBACK, alertmanager_argv, require_binary, start_on_free_port, wait_for
 
 from lightwarden.exporters.alert_http import AlertDestination, RetryPolicy
 from lightwarden.exporters.delivery import Dispatcher
@@ -54,15 +54,7 @@ def alertmanager(tmp_path, hook):
     storage.mkdir()
 
     def argv(port: int) -> list[str]:
-        return [
-            binary,
-            f"--config.file={cfg}",
-            f"--storage.path={storage}",
-            f"--web.listen-address={LOOPBACK}:{port}",
-            f"--web.external-url=http://{LOOPBACK}:{port}/",
-            "--cluster.listen-address=",
-            "--log.level=debug",
-        ]
+        return alertmanager_argv(binary, cfg, storage, port, "--log.level=debug")
 
     proc, port = start_on_free_port(argv, tmp_path / "alertmanager.log", "/-/ready")
     yield f"http://{LOOPBACK}:{port}", proc

@@ -19,7 +19,7 @@ from collections import defaultdict
 import pytest
 from _alert_helpers import Receiver
 from _demo import DemoProc
-from _procs import LOOPBACK, require_binary, start_on_free_port, wait_for
+from _procs import LOOPBACK, alertmanager_argv, require_binary, start_on_free_port, wait_for
 
 from lightwarden.fixtures.lab.model import HOUR, Lab
 from lightwarden.rules.assess import MarginTargets
@@ -93,14 +93,7 @@ def setup(tmp_path_factory):
         storage.mkdir()
 
         def argv(port: int) -> list[str]:
-            return [
-                binary,
-                f"--config.file={cfg}",
-                f"--storage.path={storage}",
-                f"--web.listen-address={LOOPBACK}:{port}",
-                f"--web.external-url=http://{LOOPBACK}:{port}/",
-                "--cluster.listen-address=",
-            ]
+            return alertmanager_argv(binary, cfg, storage, port)
 
         am_proc, am_port = start_on_free_port(argv, tmp / "alertmanager.log", "/-/ready")
         am_url = f"http://{LOOPBACK}:{am_port}"

@@ -88,8 +88,8 @@ class StatusPage:
             "<style>body{font:14px system-ui,sans-serif;margin:1.5em}"
             "table{border-collapse:collapse}td,th{padding:2px 8px;text-align:right}"
             "td.l,th.l{text-align:left}tr.crit{background:#f8d0d0}tr.warn{background:#fbeec0}"
-            "tr.unknown{background:#e4e4e4}.caution{border:1px solid #c60;padding:.5em;"
-            "max-width:60em}</style></head><body>",
+            "td{white-space:nowrap}tr.unknown{background:#e4e4e4}"
+            ".caution{border:1px solid #c60;padding:.5em;max-width:60em}</style></head><body>",
             f"<h1>lightwarden: {site}</h1>",
             f"<p>{len(rows)} optic lanes on {len(devices)} devices, worst first; "
             f"page built {escape(time.strftime('%Y-%m-%d %H:%M:%S'))}.</p>",

@@ -120,6 +120,11 @@ _CLEAN = (
     "check patch cords and look for tight bends; compare span loss with the loss budget."
 )
 _DARK = "Check the far-end transmitter, the patching, and whether the far-end port is admin down."
+_LASER_OFF = (
+    "Laser bias is 0 mA: the transmitter is off. Check whether the port or the module's "
+    "transmitter was disabled on purpose; if not, schedule replacement of the optic at the "
+    "near end."
+)
 _AIRFLOW = "Check airflow and fans: blocked vents, failed fans, hot aisle temperature."
 _POWER = "Check the platform power: supplies and voltage rails of the device."
 
@@ -162,6 +167,10 @@ def advise(
     if quantity is Quantity.SUPPLY:
         return Advice(_POWER, "")
     # Tx power or bias outside the module's thresholds: the transmitter here is the suspect.
+    if quantity is Quantity.BIAS and value == 0.0:
+        # No bias at all means the laser is switched off, which is as often configuration
+        # (a disabled port, TX_DISABLE asserted) as failure: say both, in that order.
+        return Advice(_LASER_OFF, LASER_CAUTION)
     what = "Tx power" if quantity is Quantity.TX_POWER else "laser bias"
     wear = context.wear if context is not None and context.wear is not None else None
     why = f" ({wear.reason})" if wear is not None and wear.worn else ""

@@ -190,3 +190,14 @@ def test_summaries_read_plainly():
     assert d == "No light on et-0/0/7 lane 2 while the port is admin up"
     r = resolved_summary(Quantity.RX_POWER, "et-0/0/7", 1, -7.96, Condition.NEAR_OVERLOAD)
     assert r == "Rx power on et-0/0/7 lane 1 back to -8.0 dBm (was near overload)"
+
+
+def test_zero_bias_says_the_transmitter_is_off_before_blaming_the_laser():
+    # A disabled laser draws no bias (common practice; soft TX disable is SFF-8472 A2h
+    # byte 110 b6, standards.md verified): configuration is the first suspect, then the optic.
+    a = advise(Condition.ALARM, Quantity.BIAS, 0.0, low_edge=2.0, high_edge=60.0)
+    assert a.text.startswith("Laser bias is 0 mA: the transmitter is off")
+    assert "disabled on purpose" in a.text
+    assert a.caution == LASER_CAUTION
+    worn = advise(Condition.ALARM, Quantity.BIAS, 1.5, low_edge=2.0, high_edge=60.0)
+    assert "outside the module's thresholds" in worn.text

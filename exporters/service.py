@@ -27,7 +27,7 @@ from lightwarden.collector.ssh_source import SshCredentials, SshSource, SshWorke
 from lightwarden.exporters.config import ConfigError, SiteConfig
 from lightwarden.exporters.history import History, HistoryError, RxWindow
 from lightwarden.exporters.metrics import Exposition
-from lightwarden.exporters.plant import build_plant
+from lightwarden.exporters.plant import Plant, build_plant
 from lightwarden.exporters.report import advice_context
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets, assess
@@ -236,7 +236,7 @@ class Monitor:
             raise ConfigError(f"history.path: {exc}") from None
         return self.history
 
-    def plant_with_history(self):  # -> Plant
+    def plant_with_history(self) -> Plant:
         """The plant, with span wavelengths taken from the PMDs the history has seen."""
         if self.history is None:
             return self.plant

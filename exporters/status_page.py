@@ -9,11 +9,14 @@ from __future__ import annotations
 import json
 import time
 from html import escape
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from lightwarden.exporters.http import HttpRequest, HttpServer, Response
 from lightwarden.exporters.optic_rows import OpticRow, optic_rows
 from lightwarden.rules.advice import LASER_CAUTION
+
+if TYPE_CHECKING:
+    from lightwarden.exporters.report import PlannerReport
 
 _CLASS = {0: "ok", 1: "unknown", 2: "warn", 3: "crit"}
 
@@ -54,7 +57,7 @@ class StatusPage:
         doc = {"devices": devices, "optics": [r.as_json() for r in rows], "alerts": alerts}
         return 200, "application/json", json.dumps(doc).encode()
 
-    def _report(self):  # -> PlannerReport | None
+    def _report(self) -> PlannerReport | None:
         from lightwarden.exporters.report import build_report
 
         m = self.monitor

@@ -9,14 +9,12 @@ from __future__ import annotations
 import json
 import time
 from html import escape
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 from lightwarden.exporters.http import HttpRequest, HttpServer, Response
 from lightwarden.exporters.optic_rows import OpticRow, optic_rows
+from lightwarden.exporters.report import PlannerReport, build_report, render_report, report_json
 from lightwarden.rules.advice import LASER_CAUTION
-
-if TYPE_CHECKING:
-    from lightwarden.exporters.report import PlannerReport
 
 _CLASS = {0: "ok", 1: "unknown", 2: "warn", 3: "crit"}
 
@@ -58,24 +56,18 @@ class StatusPage:
         return 200, "application/json", json.dumps(doc).encode()
 
     def _report(self) -> PlannerReport | None:
-        from lightwarden.exporters.report import build_report
-
         m = self.monitor
         if m.history is None:
             return None
         return build_report(m.history, m.plant_with_history(), m.targets, time.time())
 
     def report_text(self, _req: HttpRequest) -> Response:
-        from lightwarden.exporters.report import render_report
-
         report = self._report()
         if report is None:
             return 404, "text/plain; charset=utf-8", b"no history kept by this monitor\n"
         return 200, "text/plain; charset=utf-8", render_report(report, limit=500).encode()
 
     def report_api(self, _req: HttpRequest) -> Response:
-        from lightwarden.exporters.report import report_json
-
         report = self._report()
         if report is None:
             return 404, "application/json", b'{"error": "no history kept by this monitor"}'

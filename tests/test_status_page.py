@@ -5,6 +5,7 @@ from __future__ import annotations
 import asyncio
 import json
 import os
+import urllib.error
 import urllib.request
 
 import pytest
@@ -78,3 +79,11 @@ def test_page_shows_worst_first_caution_and_no_secret(served):
     assert "Laser safety" in text
     for secret in (*LAB_ENV.values(), LAB_SSH_PASSWORD):
         assert secret not in text
+
+
+def test_report_route_says_when_no_history_is_kept(served):
+    server, _monitor = served
+    with pytest.raises(urllib.error.HTTPError) as err:
+        urllib.request.urlopen(server.url + "/api/report", timeout=10)
+    assert err.value.code == 404
+    assert b"no history" in err.value.read()

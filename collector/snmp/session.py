@@ -178,18 +178,22 @@ class SnmpSession:
             *(ObjectType(ObjectIdentity(oid)) for oid in oids),
             lookupMib=False,
         )
+        self._check(indication, status, what, f" at varbind {int(index)}")
+        result: dict[str, object] = {oid: None for oid in oids}
+        for requested, (_, value) in zip(oids, varbinds, strict=False):
+            result[requested] = plain(value, octets)
+        return result
+
+    def _check(self, indication: object, status: object, what: str, where: str = "") -> None:
+        """Raise for a transport failure or an error-status answer (errorStatus != 0)."""
         if indication:
             raise self._fail(indication, what)
         if status:
             raise SnmpError(
                 "protocol",
-                f"{self.where} answered {status.prettyPrint()} at varbind {int(index)} "
+                f"{self.where} answered {status.prettyPrint()}{where} "  # type: ignore[attr-defined]
                 f"while reading {what}",
             )
-        result: dict[str, object] = {oid: None for oid in oids}
-        for requested, (_, value) in zip(oids, varbinds, strict=False):
-            result[requested] = plain(value, octets)
-        return result
 
     async def walk_columns(
         self, columns: Sequence[str], what: str, *, octets: bool = False
@@ -219,13 +223,7 @@ class SnmpSession:
                 *(ObjectType(ObjectIdentity(".".join(map(str, last[c])))) for c in active),
                 lookupMib=False,
             )
-            if indication:
-                raise self._fail(indication, what)
-            if status:
-                raise SnmpError(
-                    "protocol",
-                    f"{self.where} answered {status.prettyPrint()} while reading {what}",
-                )
+            self._check(indication, status, what)
             if not varbinds:
                 return results
             finished: set[str] = set()

@@ -184,3 +184,20 @@ def alertmanager_argv(binary: str, config: Path, storage: Path, port: int,
         "--cluster.listen-address=",
         *extra,
     ]
+
+
+#: An Alertmanager config routing every alert to one webhook (send_resolved on); group
+#: waits short so notifications follow within a second or two, repeats out of the way.
+ALERTMANAGER_CONFIG = """\
+route:
+  receiver: hook
+  group_by: [alertname, device, port, lane, quantity]
+  group_wait: {group_wait}
+  group_interval: 1s
+  repeat_interval: 1h
+receivers:
+  - name: hook
+    webhook_configs:
+      - url: {url}
+        send_resolved: true
+"""

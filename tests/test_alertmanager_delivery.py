@@ -15,7 +15,14 @@ from datetime import datetime
 
 import pytest
 from _alert_helpers import Receiver, make_event
-from _procs import LOOPBACK, alertmanager_argv, require_binary, start_on_free_port, wait_for
+from _procs import (
+    ALERTMANAGER_CONFIG,
+    LOOPBACK,
+    alertmanager_argv,
+    require_binary,
+    start_on_free_port,
+    wait_for,
+)
 
 from lightwarden.exporters.alert_http import AlertDestination, RetryPolicy
 from lightwarden.exporters.delivery import Dispatcher
@@ -23,19 +30,6 @@ from lightwarden.exporters.outbox import Outbox
 
 pytestmark = [pytest.mark.external]
 
-AM_CONFIG = """\
-route:
-  receiver: hook
-  group_by: [alertname, device, port, lane, quantity]
-  group_wait: 100ms
-  group_interval: 1s
-  repeat_interval: 1h
-receivers:
-  - name: hook
-    webhook_configs:
-      - url: {url}
-        send_resolved: true
-"""
 
 
 @pytest.fixture
@@ -49,7 +43,7 @@ def hook():
 def alertmanager(tmp_path, hook):
     binary = require_binary("prometheus-alertmanager")
     cfg = tmp_path / "alertmanager.yml"
-    cfg.write_text(AM_CONFIG.format(url=hook.url))
+    cfg.write_text(ALERTMANAGER_CONFIG.format(group_wait="100ms", url=hook.url))
     storage = tmp_path / "am-data"
     storage.mkdir()
 
@@ -185,7 +179,7 @@ def test_outage_keeps_events_until_alertmanager_answers(tmp_path, hook):
     wait_for(lambda: d.status()[0].failures >= 2, 20, "failed attempts while absent")
     assert d.backlog() == {d.status()[0].name: 1}
     cfg = tmp_path / "am.yml"
-    cfg.write_text(AM_CONFIG.format(url=hook.url))
+    cfg.write_text(ALERTMANAGER_CONFIG.format(group_wait="100ms", url=hook.url))
     (tmp_path / "data").mkdir()
     with Proc(
         [

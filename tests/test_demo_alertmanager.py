@@ -19,7 +19,14 @@ from collections import defaultdict
 import pytest
 from _alert_helpers import Receiver
 from _demo import DemoProc
-from _procs import LOOPBACK, alertmanager_argv, require_binary, start_on_free_port, wait_for
+from _procs import (
+    ALERTMANAGER_CONFIG,
+    LOOPBACK,
+    alertmanager_argv,
+    require_binary,
+    start_on_free_port,
+    wait_for,
+)
 
 from lightwarden.fixtures.lab.model import HOUR, Lab
 from lightwarden.rules.assess import MarginTargets
@@ -30,21 +37,6 @@ SPEED = 300.0  # lab hours 2.0 and 3.0 (dirty connector step, cleaning) at ~24 s
 DURATION_S = 80.0
 _OPENER = urllib.request.build_opener(urllib.request.ProxyHandler({}))
 
-# group_wait/group_interval short so notifications follow the demo within a second or
-# two; repeats are not what these tests look at, so they stay out of the way.
-AM_CONFIG = """\
-route:
-  receiver: hook
-  group_by: [alertname, device, port, lane, quantity]
-  group_wait: 1s
-  group_interval: 1s
-  repeat_interval: 1h
-receivers:
-  - name: hook
-    webhook_configs:
-      - url: {url}
-        send_resolved: true
-"""
 
 LAB = Lab.load()
 
@@ -88,7 +80,7 @@ def setup(tmp_path_factory):
     am_proc = demo = None
     try:
         cfg = tmp / "alertmanager.yml"
-        cfg.write_text(AM_CONFIG.format(url=am_hook.url))
+        cfg.write_text(ALERTMANAGER_CONFIG.format(group_wait="1s", url=am_hook.url))
         storage = tmp / "am-data"
         storage.mkdir()
 

@@ -256,7 +256,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
         # Short holds so the scripted stories show within minutes of wall time.
         data["conditions"] = {"hold_s": args.hold, "clear_hold_s": 2 * args.hold,
                               "hysteresis_db": 0.5}
-        alerting: dict[str, Any] = {"resolve_hold_s": 2 * args.hold,
+        alerting: dict[str, Any] = {"resolve_hold_s": 0.0,
                                     "outbox_path": str(Path(args.state_dir) / "outbox.sqlite"),
                                     "labels": {"site": "quillmoor"}}
         if args.alertmanager:

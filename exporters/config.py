@@ -159,9 +159,27 @@ class Margins(_Model):
 
 
 class Conditions(_Model):
-    hold_s: float = Field(default=60.0, ge=0)
-    clear_hold_s: float = Field(default=120.0, ge=0)
-    hysteresis_db: float = Field(default=0.5, ge=0, le=10)
+    """When a reading's condition may change (rules/hysteresis.py)."""
+
+    hold_s: float = Field(default=120.0, ge=0)
+    clear_hold_s: float = Field(default=300.0, ge=0)
+    hysteresis_db: float = Field(default=0.5, ge=0, le=10)  # Rx and Tx power
+    hysteresis_bias_ma: float = Field(default=0.2, ge=0)
+    hysteresis_temperature_c: float = Field(default=1.0, ge=0)
+    hysteresis_supply_v: float = Field(default=0.02, ge=0)
+
+
+QuantityName = Literal["rx_power", "tx_power", "bias", "temperature", "supply"]
+
+
+class AlertHold(_Model):
+    """Alert holds for one quantity, or one lane of it (beats the alerting-wide ones)."""
+
+    quantity: QuantityName
+    lane: int | None = Field(default=None, ge=0, le=16)
+    open_hold_s: float | None = Field(default=None, ge=0)
+    resolve_hold_s: float | None = Field(default=None, ge=0)
+    update_step: float | None = Field(default=None, gt=0)
 
 
 class Override(_Model):
@@ -169,7 +187,7 @@ class Override(_Model):
 
     port: str | None = None
     part_number: str | None = None
-    quantity: Literal["rx_power", "tx_power", "bias", "temperature", "supply"] = "rx_power"
+    quantity: QuantityName = "rx_power"
     lane: int | None = Field(default=None, ge=1, le=16)
     rx_overload_dbm: float | None = None
     rx_sensitivity_dbm: float | None = None
@@ -226,8 +244,10 @@ class Alerting(_Model):
     alertmanager: list[Destination] = Field(default_factory=list)
     webhooks: list[Destination] = Field(default_factory=list)
     resend_interval_s: float = Field(default=60.0, gt=0)
+    # Conditions already wait out their own holds; these only make alerts slower still.
     open_hold_s: float = Field(default=0.0, ge=0)
-    resolve_hold_s: float = Field(default=300.0, ge=0)
+    resolve_hold_s: float = Field(default=0.0, ge=0)
+    holds: list[AlertHold] = Field(default_factory=list)
     outbox_path: str = "var/lightwarden-outbox.sqlite"
     labels: dict[str, str] = Field(default_factory=dict)
     generator_url: str | None = None

@@ -34,7 +34,7 @@ from lightwarden.rules.assess import MarginTargets, assess
 from lightwarden.rules.catalogue import Catalogue, PmdSpec, default_catalogue
 from lightwarden.rules.findings import AlertEvent, Assessment, Condition, WindowSource
 from lightwarden.rules.hysteresis import ConditionTracker, HysteresisPolicy
-from lightwarden.rules.lifecycle import AlertLifecycle, LifecycleConfig
+from lightwarden.rules.lifecycle import AlertLifecycle, LifecycleConfig, PolicyOverride
 from lightwarden.rules.windows import WindowOverride, WindowResolver
 
 log = logging.getLogger("lightwarden.service")
@@ -96,6 +96,26 @@ def build_overrides(cfg: SiteConfig) -> list[WindowOverride]:
     return out
 
 
+def lifecycle_config(cfg: SiteConfig, targets: MarginTargets) -> LifecycleConfig:
+    per_quantity: dict[Quantity, PolicyOverride] = {}
+    per_lane: dict[tuple[Quantity, int], PolicyOverride] = {}
+    for h in cfg.alerting.holds:
+        q = Quantity[h.quantity.upper()]
+        override = PolicyOverride(open_hold_s=h.open_hold_s, resolve_hold_s=h.resolve_hold_s,
+                                  update_step=h.update_step)
+        if h.lane is None:
+            per_quantity[q] = override
+        else:
+            per_lane[(q, h.lane)] = override
+    return LifecycleConfig(
+        open_hold_s=cfg.alerting.open_hold_s,
+        resolve_hold_s=cfg.alerting.resolve_hold_s,
+        per_quantity=per_quantity,
+        per_lane=per_lane,
+        targets=targets,
+    )
+
+
 @dataclass(slots=True)
 class DeviceView:
     """The latest poll of one device, as the check command and status page read it."""
@@ -121,20 +141,18 @@ class Monitor:
         self.catalogue = build_catalogue(cfg)
         self.resolver = WindowResolver(self.catalogue, build_overrides(cfg))
         self.targets = MarginTargets(cfg.margins.sensitivity_db, cfg.margins.overload_db)
+        c = cfg.conditions
         self.tracker = ConditionTracker(
             HysteresisPolicy(
-                hold_s=cfg.conditions.hold_s,
-                clear_hold_s=cfg.conditions.clear_hold_s,
-                hysteresis_db=cfg.conditions.hysteresis_db,
+                hold_s=c.hold_s,
+                clear_hold_s=c.clear_hold_s,
+                hysteresis_db=c.hysteresis_db,
+                hysteresis_bias_ma=c.hysteresis_bias_ma,
+                hysteresis_temperature_c=c.hysteresis_temperature_c,
+                hysteresis_supply_v=c.hysteresis_supply_v,
             )
         )
-        self.lifecycle = AlertLifecycle(
-            LifecycleConfig(
-                open_hold_s=cfg.alerting.open_hold_s,
-                resolve_hold_s=cfg.alerting.resolve_hold_s,
-                targets=self.targets,
-            )
-        )
+        self.lifecycle = AlertLifecycle(lifecycle_config(cfg, self.targets))
         self.exposition = Exposition(
             margin_target_overload_db=self.targets.overload_db,
             margin_target_sensitivity_db=self.targets.sensitivity_db,

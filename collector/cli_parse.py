@@ -123,6 +123,9 @@ def read_cell(text: str, quantity: Quantity, unit: str, platform: Platform) -> C
     if word in {w.lower() for w in platform.not_supported}:
         note = f"{quantity.label}: not supported (device shows {shown!r})"
         return Cell(None, ReadingStatus.UNSUPPORTED, note)
+    if word in {w.lower() for w in platform.unavailable}:
+        note = f"{quantity.label}: sensor not reporting (device shows {shown!r})"
+        return Cell(None, ReadingStatus.UNAVAILABLE, note)
     if word in {w.lower() for w in platform.no_light}:
         return Cell(None, ReadingStatus.UNSUPPORTED, f"{quantity.label}: no reading ({shown!r})")
     if unit not in UNITS_FOR[quantity]:
@@ -177,7 +180,8 @@ def _inventory(platform: Platform, text: str | None, problems: list[str]) -> dic
     table = run_template(platform.template_path(inv.template), text, inv.unmatched)
     for lineno, line in table.unmatched:
         problems.append(f"{inv.command!r} line {lineno} not understood: {line!r}")
-    blanks = {w.lower() for w in (*platform.no_light, *platform.not_supported)}
+    blanks = {w.lower() for w in (*platform.no_light, *platform.not_supported,
+                                  *platform.unavailable)}
     out: dict[str, dict] = {}
     for row in table.rows:
         port = row.get(inv.columns.port, "")

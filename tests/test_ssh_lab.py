@@ -158,8 +158,10 @@ def test_ssh_readings_match_the_lab_model(server, workers, qmos, lab, clock):
                     tol = _power_tolerance_db(truth, watts)
                     truth = 10 * math.log10(truth)
             if truth is None:
-                assert status is ReadingStatus.UNSUPPORTED, (optic.port, lane, q)
-                assert "N/A" in note
+                # a sensor that is not reporting: the lab CLI shows "no-data", which the
+                # QMOS definition lists as `unavailable` (same status as the SNMP path)
+                assert status is ReadingStatus.UNAVAILABLE, (optic.port, lane, q)
+                assert "no-data" in note
             elif truth == 0.0 and q in (Quantity.RX_POWER, Quantity.TX_POWER):
                 assert status is ReadingStatus.NO_LIGHT, (optic.port, lane, q)
             else:
@@ -198,7 +200,7 @@ def test_stories_come_through_ssh(server, workers, qmos, lab, clock):
     core_a, dist_b = run(go())
     rows_a = {(o.port, lane, q): (s, n) for o, lane, q, _v, s, n in core_a.batch.rows()}
     rows_b = {(o.port, lane, q): (s, n) for o, lane, q, _v, s, n in dist_b.batch.rows()}
-    assert rows_a[("sfp2", 1, Quantity.BIAS)][0] is ReadingStatus.UNSUPPORTED
+    assert rows_a[("sfp2", 1, Quantity.BIAS)][0] is ReadingStatus.UNAVAILABLE
     # qm-dist-b sfp20's far transmitter is disabled: no light, shown as "-inf" in dBm
     assert rows_b[("sfp20", 1, Quantity.RX_POWER)] == (ReadingStatus.NO_LIGHT,
                                                          "no light (device shows '-inf')")
@@ -356,6 +358,7 @@ def test_odd_cells_become_statuses_with_reasons(server, workers, qmos):
     server.faults("qm-f-odd").odd_cells = {
         "sfp1": {"rx": "--", "tx": "N/A", "volts": ""},
         "sfp4": {"bias": "n/s"},
+        "sfp6": {"bias": "No-Data"},
         "sfp5": {"rx": "0.0000"},
     }
     try:
@@ -370,6 +373,8 @@ def test_odd_cells_become_statuses_with_reasons(server, workers, qmos):
     assert rows[("sfp1", 0, Quantity.SUPPLY)][0] is ReadingStatus.UNSUPPORTED
     assert rows[("sfp1", 0, Quantity.TEMPERATURE)][0] is ReadingStatus.OK
     assert rows[("sfp4", 1, Quantity.BIAS)][0] is ReadingStatus.UNSUPPORTED
+    assert rows[("sfp6", 1, Quantity.BIAS)] == (
+        ReadingStatus.UNAVAILABLE, "bias: sensor not reporting (device shows 'No-Data')")
     assert rows[("sfp5", 1, Quantity.RX_POWER)] == (ReadingStatus.NO_LIGHT, "no light (0 mW)")
 
 

@@ -261,3 +261,41 @@ def test_exposition_names_the_module_as_window_source(with_maps, lab):
              if ln.startswith("lightwarden_rx_overload_dbm{") and f'device="{device}"' in ln
              and f'port="{port}"' in ln]
     assert lines and all('window_source="module"' in ln for ln in lines), lines
+
+
+# Display resolution of the two paths: the lab's SNMP agent encodes power as 0.1 uW or
+# 0.01 dB, bias in uA, temperature in 0.1 C, supply in mV; its command line prints two
+# decimals (dBm, mA, C, V) or four (mW). Tolerances cover the coarser of each pair.
+_TOLERANCE = {
+    Quantity.RX_POWER: 0.02,  # dB
+    Quantity.TX_POWER: 0.02,
+    Quantity.BIAS: 0.01,  # mA
+    Quantity.TEMPERATURE: 0.1,  # C
+    Quantity.SUPPLY: 0.01,  # V
+}
+
+
+def _readings(view: DeviceView) -> dict[tuple[str, int, Quantity], tuple[float, int]]:
+    b = view.outcome.batch
+    return {
+        (b.optics[int(b.optic[i])].port, int(b.lane[i]), Quantity(int(b.quantity[i]))):
+            (float(b.value[i]), int(b.status[i]))
+        for i in range(len(b))
+    }
+
+
+@pytest.mark.parametrize("device", ["qm-core-a", "qm-core-b", "qm-dist-a"])
+def test_ssh_and_snmp_give_the_same_readings_for_the_same_optics(with_maps, all_ssh, device):
+    """issue: polling over SSH gives the same readings as the SNMP path (frozen lab time)."""
+    snmp = _readings(with_maps[1][device])
+    ssh = _readings(all_ssh[1][device])
+    assert snmp.keys() == ssh.keys()
+    for key, (value, status) in snmp.items():
+        ssh_value, ssh_status = ssh[key]
+        assert ReadingStatus(ssh_status) == ReadingStatus(status), key
+        if status == ReadingStatus.OK:
+            assert math.isclose(ssh_value, value, abs_tol=_TOLERANCE[key[2]]), (key, value,
+                                                                               ssh_value)
+    # and the same windows judged them: module thresholds from the maps on both paths
+    a_snmp, a_ssh = with_maps[1][device].assessment, all_ssh[1][device].assessment
+    assert np.array_equal(a_snmp.window_source, a_ssh.window_source)

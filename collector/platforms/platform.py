@@ -195,6 +195,8 @@ class Platform(_Strict):
     no_light: list[str] = Field(default_factory=lambda: ["-inf", "--"])
     #: Cell texts meaning "this module or platform does not measure this".
     not_supported: list[str] = Field(default_factory=lambda: ["N/A"])
+    #: Cell texts meaning "the sensor is there but is not reporting now".
+    unavailable: list[str] = Field(default_factory=list)
     #: dBm readings at or below this are treated as no light (some CLIs print a floor).
     no_light_dbm: float | None = None
     #: How long one command may take, seconds, unless the site config overrides it.

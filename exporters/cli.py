@@ -41,6 +41,10 @@ def _setup_logging(verbose: int) -> None:
     # keep them quiet unless asked for twice.
     for noisy in ("pysnmp", "paramiko", "netmiko", "asyncssh", "apscheduler"):
         logging.getLogger(noisy).setLevel(logging.WARNING if verbose < 2 else logging.INFO)
+    # A poll still running when its next turn comes is skipped by design (no overlap);
+    # the scheduler's warning for each would drown the log of a busy site.
+    if verbose < 2:
+        logging.getLogger("apscheduler.scheduler").setLevel(logging.ERROR)
 
 
 def _load(path: str) -> tuple[SiteConfig, Path]:
@@ -246,6 +250,11 @@ def cmd_demo(args: argparse.Namespace) -> int:
     from lightwarden.fixtures.lab.server import LabServers, lab_site_config
 
     os.environ.update(LAB_ENV)
+    # Each demo starts afresh: a new lab has no past alerts or readings of its own.
+    state = Path(args.state_dir)
+    for name in ("outbox.sqlite", "history.sqlite"):
+        for suffix in ("", "-wal", "-shm"):
+            (state / (name + suffix)).unlink(missing_ok=True)
     lab = LabServers(speed=args.speed, base_port=0)
     endpoints = lab.start()
     try:
@@ -267,7 +276,12 @@ def cmd_demo(args: argparse.Namespace) -> int:
         cfg = parse_config(yaml.safe_dump(data), "(demo)")
         monitor = Monitor(cfg, base_dir=Path.cwd())
         monitor.build_sources()
-        monitor.open_history()
+        history = monitor.open_history()
+        if history is not None and args.backfill_days > 0:
+            from lightwarden.fixtures.lab.backfill import backfill
+
+            backfill(lab.lab, lambda b: history.record(b, force=True), lab.clock.now(),
+                     time.time(), days=args.backfill_days)
         server = _start_http(monitor, cfg.listen.host, cfg.listen.port)
         alert_runner = _start_alerting(monitor, cfg, Path.cwd())
         n_optics = len(lab.lab.optic_ports())
@@ -382,7 +396,11 @@ def build_parser() -> argparse.ArgumentParser:
                    help="condition hold time, seconds (demo default is short)")
     d.add_argument("--alertmanager", metavar="URL", help="send alerts to this Alertmanager")
     d.add_argument("--webhook", metavar="URL", help="send alert events to this webhook")
-    d.add_argument("--state-dir", default="var/demo", help="where the demo keeps its outbox")
+    d.add_argument("--state-dir", default="var/demo",
+                   help="where the demo keeps its outbox and history")
+    d.add_argument("--backfill-days", type=float, default=60.0, metavar="DAYS",
+                   help="give the demo this many days of lab history first, so the "
+                        "planners' report has something to say (0: none)")
     d.set_defaults(func=cmd_demo)
 
     r = sub.add_parser("run", help="the monitor daemon")

@@ -145,8 +145,8 @@ def _outlook(history: History, plant: Plant | None, w: RxWindow, targets: Margin
         rate_db_per_day=trend.rate_per_day if trend is not None else None,
         samples=len(rx), target_lost_at=target_at, edge_reached_at=edge_at,
         laser_worn=ctx.wear.worn if ctx.wear is not None else None,
-        laser_note=(f"{ctx.wear_end} end: {ctx.wear.reason}" if ctx.wear is not None
-                    else "far end unknown (no plant record)"),
+        laser_note=(f"{ctx.wear_end} end: {ctx.wear.reason or 'no sign of wear'}"
+                    if ctx.wear is not None else "far end unknown (no plant record)"),
         history_note=note,
     )
 

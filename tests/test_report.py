@@ -147,3 +147,45 @@ def test_report_without_history_is_a_clear_error(tmp_path: Path,
     cfg = _config(tmp_path)
     assert main(["report", "-c", str(cfg)]) == 2
     assert "no history yet" in capsys.readouterr().err
+
+
+def test_lab_backfill_shows_the_wearing_laser_and_its_forecast(tmp_path: Path):
+    """The demo's backfilled past, through the real report.
+
+    lab.yaml story laser_wear: qm-dist-a sfp5's Tx falls 0.06 dB/day (from 30 days before
+    the lab epoch); its far end qm-core-a sfp5 receives it, so that Rx falls at the same
+    rate. With the module's declared Rx low alarm of -18 dBm (lab.yaml LF-10GLR-10) and
+    the 3 dB margin target (common practice), the target is lost at -15 dBm.
+    """
+    from lightwarden.exporters.history import History
+    from lightwarden.exporters.plant import build_plant
+    from lightwarden.fixtures.lab.backfill import backfill, lab_batch
+    from lightwarden.fixtures.lab.model import Lab
+    from lightwarden.fixtures.lab.server import lab_plant
+
+    lab = Lab.load()
+    wall_now = 1_800_000_000.0
+    cfg = parse_config(yaml.safe_dump({
+        "plant": lab_plant(lab),
+        "devices": [{"name": d, "host": "127.0.0.1", "credentials": "c"} for d in lab.devices],
+        "credentials": {"c": {"snmp_v2c": {"community": {"env": "UNUSED"}}}},
+        "history": {"path": str(tmp_path / "h.sqlite")},
+    }), "lab")
+    monitor = Monitor(cfg, base_dir=tmp_path, alerts=False)
+    history = monitor.open_history()
+    assert isinstance(history, History)
+    backfill(lab, lambda b: history.record(b, force=True), lab.epoch, wall_now, days=40)
+    for device in lab.devices:  # one live poll records the windows the rules chose
+        monitor.handle(PollOutcome(device, wall_now, 0.1,
+                                   lab_batch(lab, device, lab.epoch, wall_now)))
+    plant = build_plant(cfg, monitor.catalogue)
+    report = build_report(history, plant, monitor.targets, wall_now, days=25)
+    lane = next(o for o in report.lanes if (o.device, o.port) == ("qm-core-a", "sfp5"))
+    assert lane.window_source == "module" and lane.sensitivity_dbm == pytest.approx(-18.0)
+    assert lane.rate_db_per_day == pytest.approx(-0.06, abs=0.005)
+    assert lane.laser_worn is True and lane.laser_note.startswith("far end")
+    days_left = (lane.rx_power_dbm - (-15.0)) / 0.06
+    assert lane.target_lost_at == pytest.approx(wall_now + days_left * DAY, rel=0, abs=8 * DAY)
+    healthy = next(o for o in report.lanes if (o.device, o.port) == ("qm-core-a", "sfp6"))
+    assert healthy.target_lost_at is None and healthy.laser_worn is False
+    monitor.close()

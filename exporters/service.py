@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from lightwarden.collector.platforms.platform import PlatformError, load_platform
-from lightwarden.collector.readings import PollOutcome, Quantity
+from lightwarden.collector.readings import OpticIdentity, PollOutcome, Quantity
 from lightwarden.collector.schedule import PollScheduler
 from lightwarden.collector.snmp.credentials import CredentialsError, SnmpCredentials
 from lightwarden.collector.snmp.session import EnginePool
@@ -35,6 +35,7 @@ from lightwarden.rules.catalogue import Catalogue, PmdSpec, default_catalogue
 from lightwarden.rules.findings import AlertEvent, Assessment, Condition, WindowSource
 from lightwarden.rules.hysteresis import ConditionTracker, HysteresisPolicy
 from lightwarden.rules.lifecycle import AlertLifecycle, LifecycleConfig, PolicyOverride
+from lightwarden.rules.spanloss import LinkIssue, check_link
 from lightwarden.rules.windows import WindowOverride, WindowResolver
 
 log = logging.getLogger("lightwarden.service")
@@ -260,6 +261,22 @@ class Monitor:
             return self.plant
         pmd_of = {(w.device, w.port): w.pmd for w in self.history.rx_windows()}
         return build_plant(self.cfg, self.catalogue, pmd_of)
+
+    def link_issues(self) -> list[LinkIssue]:
+        """Spans in the plant record whose two ends do not belong together (wrong PMD,
+        wavelength, or BiDi pairing), from the latest identity of each end."""
+        optics: dict[tuple[str, str], OpticIdentity] = {}
+        for view in self.views.values():
+            if view.outcome.batch is not None:
+                for o in view.outcome.batch.optics:
+                    optics[(o.device, o.port)] = o
+        issues: list[LinkIssue] = []
+        for sp in self.plant.spans:
+            a = optics.get((sp.a_device, sp.a_port))
+            b = optics.get((sp.b_device, sp.b_port))
+            if a is not None and b is not None:
+                issues.extend(check_link(a, b))
+        return issues
 
     def close(self) -> None:
         if self.history is not None:

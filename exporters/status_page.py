@@ -52,7 +52,10 @@ class StatusPage:
              "advice": a.advice, "caution": a.caution}
             for a in self.monitor.open_alerts.values()
         ]
-        doc = {"devices": devices, "optics": [r.as_json() for r in rows], "alerts": alerts}
+        links = [{"kind": i.kind, "severity": i.severity, "text": i.text}
+                 for i in self.monitor.link_issues()]
+        doc = {"devices": devices, "optics": [r.as_json() for r in rows], "alerts": alerts,
+               "links": links}
         return 200, "application/json", json.dumps(doc).encode()
 
     def _report(self) -> PlannerReport | None:
@@ -108,6 +111,12 @@ class StatusPage:
                     "</tr>"
                 )
             out.append("</table>")
+        links = self.monitor.link_issues()
+        if links:
+            out.append("<h2>Links whose ends do not match</h2><ul>")
+            out += [f"<li class={'crit' if i.severity == 'critical' else 'warn'}>"
+                    f"{escape(i.text)}</li>" for i in links]
+            out.append("</ul>")
         out.append(
             "<h2>Optics</h2><table><tr><th class=l>device</th><th class=l>port</th>"
             "<th>lane</th><th class=l>PMD</th><th>Rx dBm</th><th>Tx dBm</th><th>bias mA</th>"

@@ -27,7 +27,7 @@ def served():
     os.environ.update(LAB_ENV)
     lab = LabServers(speed=0.0)
     endpoints = lab.start()
-    data = lab_site_config(endpoints)
+    data = lab_site_config(endpoints, lab=lab.lab)
     data["alerting"] = {"open_hold_s": 0, "resolve_hold_s": 0}
     monitor = Monitor(parse_config(yaml.safe_dump(data), "test"))
 
@@ -64,6 +64,11 @@ def test_api_lists_every_optic_worst_first_with_alerts(served):
     assert {d["device"] for d in doc["devices"]} == {"qm-core-a", "qm-core-b", "qm-dist-a",
                                                      "qm-dist-b"}
     assert all(d["up"] for d in doc["devices"])
+    # lab.yaml story wrong_optic: a 10GBASE-ER part (1550 nm) facing a 10GBASE-LR one
+    # (1310 nm) on the qm-core-b sfp15 / qm-dist-b sfp15 span
+    kinds = {i["kind"] for i in doc["links"] if "sfp15" in i["text"]}
+    assert kinds == {"pmd-mismatch", "wavelength-mismatch"}, doc["links"]
+    assert all("sfp15" in i["text"] for i in doc["links"])
     hot = [a for a in doc["alerts"] if a["device"] == "qm-core-a" and a["port"] == "sfp31"]
     assert hot and "dB" in hot[0]["advice"]
     assert hot[0]["caution"] == LASER_CAUTION
@@ -77,6 +82,7 @@ def test_page_shows_worst_first_caution_and_no_secret(served):
     first_row = text.index("<tr class=crit>")
     assert first_row < text.index("<tr class=ok>")
     assert "Laser safety" in text
+    assert "Links whose ends do not match" in text
     for secret in (*LAB_ENV.values(), LAB_SSH_PASSWORD):
         assert secret not in text
 

@@ -76,6 +76,14 @@ def _render_table(rows: list[Any], failures: list[dict[str, object]]) -> str:
         )
     for f in failures:
         out.append(f"{f['device']:<12} poll failed ({f['error_kind']}): {f['error']}")
+    advised = [r for r in rows if r.advice]
+    if advised:
+        out += ["", "What to do:"]
+        out += [f"  {r.device} {r.port} lane {r.lane} ({r.condition}): {r.advice}"
+                for r in advised]
+        caution = next((r.caution for r in advised if r.caution), "")
+        if caution:
+            out += ["", caution]
     return "\n".join(out)
 
 
@@ -88,7 +96,7 @@ def run_check(monitor: Any, as_json: bool) -> int:
         if v.assessment is None:
             failures.append(failed_device_row(v.outcome))
         else:
-            rows.extend(optic_rows(v.assessment))
+            rows.extend(optic_rows(v.assessment, monitor.targets))
     t = monitor.targets
     rows.sort(key=lambda r: (-r.severity, r.worst_margin(t.overload_db, t.sensitivity_db),
                              r.device, r.port, r.lane))

@@ -11,6 +11,8 @@ import math
 from dataclasses import dataclass, field
 
 from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
+from lightwarden.rules.advice import advise
+from lightwarden.rules.assess import MarginTargets
 from lightwarden.rules.findings import Assessment, Condition, WindowSource
 
 
@@ -36,9 +38,13 @@ class OpticRow:
     notes: list[str] = field(default_factory=list)
     #: the subset of notes that explain a missing or odd value (shown in tables)
     value_notes: list[str] = field(default_factory=list)
+    advice: str = ""  # what to do about the worst condition ("" when healthy)
+    caution: str = ""  # the laser-safety caution, when the advice means handling optics
+    worst_row: int = -1  # batch row of the worst condition seen so far
 
     def as_json(self) -> dict[str, object]:
-        out = {k: getattr(self, k) for k in self.__slots__ if k not in ("severity", "value_notes")}  # type: ignore[attr-defined]
+        out = {k: getattr(self, k) for k in self.__slots__  # type: ignore[attr-defined]
+               if k not in _NOT_IN_JSON}
         for k, v in out.items():
             if isinstance(v, float):
                 out[k] = round(v, 3)
@@ -52,6 +58,9 @@ class OpticRow:
         if self.margin_to_sensitivity_db is not None:
             left.append(self.margin_to_sensitivity_db - sensitivity_target)
         return min(left) if left else math.inf
+
+
+_NOT_IN_JSON = frozenset({"severity", "value_notes", "worst_row"})
 
 
 def _num(x: float) -> float | None:
@@ -74,7 +83,9 @@ _STATUS_WORDS = {
 }
 
 
-def optic_rows(assessment: Assessment) -> list[OpticRow]:
+def optic_rows(assessment: Assessment, targets: MarginTargets | None = None) -> list[OpticRow]:
+    """Wide rows, each with advice for its worst condition (margin ``targets`` for pads)."""
+    targets = targets or MarginTargets()
     batch = assessment.batch
     rows: dict[tuple[int, int], OpticRow] = {}
     module: dict[int, list[int]] = {}
@@ -100,7 +111,19 @@ def optic_rows(assessment: Assessment) -> list[OpticRow]:
     for (o, _lane), row in rows.items():
         for i in module.get(o, ()):
             _fold(row, assessment, i)
+    for row in rows.values():
+        if row.severity >= 2:
+            _advise(row, assessment, targets)
     return list(rows.values())
+
+
+def _advise(row: OpticRow, a: Assessment, targets: MarginTargets) -> None:
+    i = row.worst_row
+    b = a.batch
+    advice = advise(Condition(int(a.condition[i])), Quantity(int(b.quantity[i])),
+                    float(b.value[i]), low_edge=float(a.low_edge[i]),
+                    high_edge=float(a.high_edge[i]), targets=targets)
+    row.advice, row.caution = advice.text, advice.caution
 
 
 def _fold(row: OpticRow, a: Assessment, i: int) -> None:
@@ -112,7 +135,7 @@ def _fold(row: OpticRow, a: Assessment, i: int) -> None:
     if cond.severity > row.severity or (
         cond.severity == row.severity and row.condition == Condition.HEALTHY.word
     ):
-        row.severity, row.condition = cond.severity, cond.word
+        row.severity, row.condition, row.worst_row = cond.severity, cond.word, i
     source = WindowSource(int(a.window_source[i]))
     if q is Quantity.RX_POWER:
         row.rx_overload_dbm = _num(float(a.high_edge[i]))

@@ -38,7 +38,7 @@ class StatusPage:
                             "error": o.error, "error_kind": o.error_kind,
                             "polled_at": o.started_at})
             if view.assessment is not None:
-                rows.extend(optic_rows(view.assessment))
+                rows.extend(optic_rows(view.assessment, self.monitor.targets))
         t = self.monitor.targets
         rows.sort(key=lambda r: (-r.severity, r.worst_margin(t.overload_db, t.sensitivity_db),
                                  r.device, r.port, r.lane))

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import socket
 import subprocess
 import sys
@@ -214,3 +215,22 @@ def test_usage_errors_exit_2():
     assert lightwarden().returncode == 2
     res = lightwarden("check")
     assert res.returncode == 2 and "give -c SITE.yaml or HOST[:PORT]" in res.stderr
+
+
+def test_check_says_what_to_do_with_the_laser_caution(lab_process):
+    _base, endpoints, tmp = lab_process
+    site = _site(tmp, endpoints, "advice.yaml", devices=["qm-core-a"])
+    res = lightwarden("check", "-c", str(site), env=LAB_ENV)
+    assert res.returncode == 1
+    text = res.stdout
+    assert "What to do:" in text
+    # the hot 10GBASE-ER receiver gets a stocked pad (standards.md practice: 1, 3, 5, 7,
+    # 10, 15, 20 dB); the dark port gets the far-end checks
+    pad = re.search(r"qm-core-a sfp31 lane 1 \(overloaded\): .*?attenuator of (\d+) dB", text)
+    assert pad and int(pad.group(1)) in {1, 3, 5, 7, 10, 15, 20}, text
+    assert "qm-core-a sfp20 lane 1 (dark)" in text
+    assert "never look into a fibre end" in text
+    rows = json.loads(lightwarden("check", "-c", str(site), "--json", env=LAB_ENV).stdout)
+    hot = next(r for r in rows if r["port"] == "sfp31")
+    assert "attenuator" in hot["advice"] and "Laser safety" in hot["caution"]
+    assert all(r["advice"] == "" for r in rows if r["condition"] == "healthy")

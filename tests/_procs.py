@@ -31,11 +31,13 @@ def in_ci() -> bool:
     return os.environ.get("CI", "").lower() == "true"
 
 
-def require_binary(name: str) -> str:
-    """Path of ``name``; missing -> pytest skip locally, failure under CI=true."""
+def require_binary(name: str, package: str = "") -> str:
+    """Path of ``name`` (a command or an absolute path); missing -> pytest skip locally,
+    failure under CI=true. ``package`` names the Debian package that brings it."""
     path = shutil.which(name)
     if path is None:
-        msg = f"required binary {name!r} not found on PATH"
+        msg = f"required binary {name!r} not found" + (
+            f" (Debian package {package!r})" if package else " on PATH")
         if in_ci():
             pytest.fail(msg + " (CI=true: external binaries are mandatory)")
         pytest.skip(msg)

@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import os
 import secrets
-import shutil
 import socket
 import subprocess
 import time
@@ -15,23 +14,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from string import Template
 
-import pytest
+from _procs import require_binary
 
 SNMPD = "/usr/sbin/snmpd"
 FIXTURES = Path(__file__).resolve().parent.parent / "fixtures" / "snmpd"
 SYS_UPTIME = "1.3.6.1.2.1.1.3.0"
-
-
-def require_binary(path_or_name: str) -> str:
-    """Return the binary's path; skip (locally) or fail (CI=true) when it is missing."""
-    found = path_or_name if os.path.isabs(path_or_name) else shutil.which(path_or_name)
-    if found and os.access(found, os.X_OK):
-        return found
-    message = f"{path_or_name} not installed (Debian packages snmp/snmpd)"
-    if os.environ.get("CI", "").lower() == "true":
-        pytest.fail(message)
-    pytest.skip(message)
-    raise AssertionError("unreachable")
 
 
 def free_udp_port() -> int:

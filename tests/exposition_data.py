@@ -6,11 +6,8 @@ reference sheet so the exporter is tested on its own.
 
 from __future__ import annotations
 
-import os
-import shutil
-
 import numpy as np
-import pytest
+from _procs import require_binary
 
 from lightwarden.collector.readings import (
     BatchBuilder,
@@ -130,9 +127,4 @@ def ok_outcome(batch: ReadingBatch, duration: float = 1.25) -> PollOutcome:
 
 def promtool_path() -> str:
     """The promtool binary; skips locally when absent, fails under CI=true."""
-    path = shutil.which("promtool")
-    if path is None:
-        if os.environ.get("CI") == "true":
-            pytest.fail("promtool is required in CI (Debian package 'prometheus')")
-        pytest.skip("promtool not installed (Debian package 'prometheus')")
-    return path
+    return require_binary("promtool", "prometheus")

@@ -9,8 +9,6 @@ from __future__ import annotations
 
 import gzip
 import json
-import os
-import shutil
 import socket
 import subprocess
 import time
@@ -19,6 +17,7 @@ import urllib.request
 from pathlib import Path
 
 import pytest
+from _procs import require_binary
 from exposition_data import lab_assessment, lab_batch, ok_outcome
 
 from lightwarden.exporters.http import HttpRequest, HttpServer, accepts_gzip
@@ -188,11 +187,7 @@ def _free_port() -> int:
 @pytest.mark.external
 @pytest.mark.slow
 def test_real_prometheus_scrapes_us(server: HttpServer, tmp_path: Path) -> None:
-    binary = shutil.which("prometheus")
-    if binary is None:
-        if os.environ.get("CI") == "true":
-            pytest.fail("prometheus is required in CI (Debian package 'prometheus')")
-        pytest.skip("prometheus not installed")
+    binary = require_binary("prometheus", "prometheus")
     config = tmp_path / "prometheus.yml"
     config.write_text(
         "global: {scrape_interval: 1s, scrape_timeout: 1s}\n"

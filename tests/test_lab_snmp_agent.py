@@ -15,7 +15,6 @@ import functools
 import math
 import os
 import re
-import shutil
 import socket
 import subprocess
 import time
@@ -23,6 +22,7 @@ from importlib import resources
 
 import pytest
 import yaml
+from _procs import require_binary
 
 from lightwarden.fixtures.lab.model import (
     HOUR,
@@ -60,12 +60,8 @@ def v3(auth: str, auth_key: str = LAB_V3_AUTH_KEY) -> list[str]:
 
 
 def require_net_snmp() -> None:
-    missing = [b for b in ("snmpget", "snmpbulkwalk", "snmpbulkget") if shutil.which(b) is None]
-    if missing:
-        msg = f"net-snmp client tools missing: {', '.join(missing)} (Debian package 'snmp')"
-        if os.environ.get("CI") == "true":
-            pytest.fail(msg)
-        pytest.skip(msg)
+    for tool in ("snmpget", "snmpbulkwalk", "snmpbulkget"):
+        require_binary(tool, "snmp")
 
 
 def run_tool(tool: str, port: int, creds: list[str], *args: str, timeout: int = 3,

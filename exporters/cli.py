@@ -31,6 +31,10 @@ class UsageError(Exception):
     pass
 
 
+class LabError(Exception):
+    """The simulated lab could not start (a port in use or out of range)."""
+
+
 # -- helpers ------------------------------------------------------------------------------
 
 
@@ -264,7 +268,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
         for suffix in ("", "-wal", "-shm"):
             (state / (name + suffix)).unlink(missing_ok=True)
     lab = LabServers(speed=args.speed, base_port=0)
-    endpoints = lab.start()
+    endpoints = _start_lab(lab)
     try:
         data = lab_site_config(endpoints, interval_s=args.interval, lab=lab.lab)
         data["history"] = {"path": str(Path(args.state_dir) / "history.sqlite"),
@@ -317,13 +321,22 @@ def cmd_demo(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _start_lab(lab: Any) -> Any:
+    from lightwarden.fixtures.lab.snmp_agent import LabAgentError
+
+    try:
+        return lab.start()
+    except (LabAgentError, OSError) as exc:
+        raise LabError(f"the lab could not start: {exc}") from None
+
+
 def cmd_lab(args: argparse.Namespace) -> int:
     from lightwarden.fixtures.lab.server import LabServers
 
     known = Path(args.known_hosts)
     known.parent.mkdir(parents=True, exist_ok=True)
     lab = LabServers(speed=args.speed, base_port=args.port, known_hosts_path=known)
-    endpoints = lab.start()
+    endpoints = _start_lab(lab)
     print(f"lightwarden lab: {len(endpoints.snmp)} switches, lab clock x{args.speed:g}",
           flush=True)
     for name, port in endpoints.snmp.items():
@@ -385,6 +398,17 @@ def cmd_rules(args: argparse.Namespace) -> int:
 # -- parser -------------------------------------------------------------------------------
 
 
+def _port(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a port number") from None
+    if not 0 <= value <= 65535:
+        raise argparse.ArgumentTypeError(f"{value} is not a port (0..65535)")
+    return value
+
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="lightwarden",
@@ -398,7 +422,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="stop after this many seconds (default: until Ctrl-C)")
     d.add_argument("--speed", type=float, default=60.0, metavar="N",
                    help="lab clock runs N times real time (default 60: a lab hour a minute)")
-    d.add_argument("--port", type=int, default=9817, help="metrics/status port (0: any)")
+    d.add_argument("--port", type=_port, default=9817, help="metrics/status port (0: any)")
     d.add_argument("--interval", type=float, default=5.0, help="poll interval, seconds")
     d.add_argument("--hold", type=float, default=10.0,
                    help="condition hold time, seconds (demo default is short)")
@@ -437,7 +461,7 @@ def build_parser() -> argparse.ArgumentParser:
     v.set_defaults(func=cmd_validate)
 
     lab = sub.add_parser("lab", help="serve only the simulated lab (SNMP and SSH)")
-    lab.add_argument("--port", type=int, default=16161,
+    lab.add_argument("--port", type=_port, default=16161,
                      help="first port: device i answers SNMP (UDP) and SSH (TCP) on PORT+i")
     lab.add_argument("--speed", type=float, default=1.0, help="lab clock speed-up")
     lab.add_argument("--duration", type=float, default=None, metavar="SECONDS")
@@ -473,7 +497,7 @@ def main(argv: list[str] | None = None) -> int:
     _setup_logging(args.verbose)
     try:
         return int(args.func(args))
-    except (ConfigError, UsageError) as exc:
+    except (ConfigError, UsageError, LabError) as exc:
         for line in str(exc).splitlines():
             print(f"lightwarden {args.command}: {line}", file=sys.stderr)
         return EXIT_ERROR

@@ -234,3 +234,14 @@ def test_check_says_what_to_do_with_the_laser_caution(lab_process):
     hot = next(r for r in rows if r["port"] == "sfp31")
     assert "attenuator" in hot["advice"] and "Laser safety" in hot["caution"]
     assert all(r["advice"] == "" for r in rows if r["condition"] == "healthy")
+
+
+def test_lab_on_a_busy_port_is_a_clear_error(lab_process):
+    base, _endpoints, tmp = lab_process
+    res = lightwarden("lab", "--port", str(base), "--duration", "1",
+                      "--known-hosts", str(tmp / "other_known_hosts"))
+    assert res.returncode == 2
+    assert "the lab could not start" in res.stderr and str(base) in res.stderr
+    assert "Traceback" not in res.stderr
+    bad = lightwarden("lab", "--port", "70000")
+    assert bad.returncode == 2 and "is not a port" in bad.stderr

@@ -253,6 +253,19 @@ class Alerting(_Model):
     generator_url: str | None = None
 
 
+class Shard(_Model):
+    """This instance's share of a site polled by several (rendezvous hashing on names)."""
+
+    index: int = Field(default=0, ge=0)
+    count: int = Field(default=1, ge=1, le=1024)
+
+    @model_validator(mode="after")
+    def _in_range(self) -> Shard:
+        if self.index >= self.count:
+            raise ValueError(f"index {self.index} must be below count {self.count}")
+        return self
+
+
 class Listen(_Model):
     host: str = "127.0.0.1"
     port: int = Field(default=9817, ge=0, le=65535)
@@ -269,6 +282,7 @@ class History(_Model):
 class SiteConfig(_Model):
     site: str = "site"
     listen: Listen = Listen()
+    shard: Shard = Shard()
     poll: Poll = Poll()
     ssh: Ssh = Ssh()
     margins: Margins = Margins()

@@ -24,11 +24,12 @@ from lightwarden.collector.snmp.session import EnginePool
 from lightwarden.collector.snmp.source import SnmpSource
 from lightwarden.collector.source import PollSource
 from lightwarden.collector.ssh_source import SshCredentials, SshSource, SshWorkers
-from lightwarden.exporters.config import ConfigError, SiteConfig
+from lightwarden.exporters.config import ConfigError, Device, SiteConfig
 from lightwarden.exporters.history import History, HistoryError, RxWindow
 from lightwarden.exporters.metrics import Exposition
 from lightwarden.exporters.plant import Plant, build_plant
 from lightwarden.exporters.report import advice_context
+from lightwarden.exporters.shard import mine
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets, assess
 from lightwarden.rules.catalogue import Catalogue, PmdSpec, default_catalogue
@@ -169,6 +170,14 @@ class Monitor:
         self.sources: list[PollSource] = []
         self.exposition.set_alert_source(lambda: list(self.open_alerts.values()))
 
+    def devices(self) -> list[Device]:
+        """The configured devices this instance polls (all, unless the site is sharded)."""
+        sh = self.cfg.shard
+        if sh.count == 1:
+            return list(self.cfg.devices)
+        names = set(mine([d.name for d in self.cfg.devices], sh.index, sh.count))
+        return [d for d in self.cfg.devices if d.name in names]
+
     # -- sources --------------------------------------------------------------------
     def build_sources(self) -> list[PollSource]:
         """Make one source per device. Reads secrets; errors name device and reference."""
@@ -176,7 +185,7 @@ class Monitor:
         pmd_names = tuple(s.name for s in self.catalogue)
         sources: list[PollSource] = []
         platforms: dict[str, object] = {}
-        for d in cfg.devices:
+        for d in self.devices():
             cred = cfg.credentials[d.credentials]
             timeout = d.timeout_s or cfg.poll.timeout_s
             retries = d.retries if d.retries is not None else cfg.poll.retries

@@ -23,7 +23,7 @@ NAMES = [f"sw-{i:04d}" for i in range(3000)]
 
 def test_every_device_has_exactly_one_owner_and_load_is_even():
     shards = [mine(NAMES, i, 3) for i in range(3)]
-    assert sorted(sum(shards, [])) == sorted(NAMES)
+    assert sorted(n for s in shards for n in s) == sorted(NAMES)
     for s in shards:
         # 1000 expected; +-10 % is over 5 standard deviations of a fair split
         assert 900 <= len(s) <= 1100, [len(x) for x in shards]

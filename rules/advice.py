@@ -286,7 +286,7 @@ def summarize(
     edge_value: float | None,
     window_source: str,
 ) -> str:
-    """One line saying what is wrong, e.g. "Rx power -2.0 dBm on et-1 lane 1 is 1.0 dB
+    """One line saying what is wrong, e.g. "Rx power -2.0 dBm on sfp1 lane 1 is 1.0 dB
     below overload (-1.0 dBm, pmd-table)"."""
     condition = Condition(condition)
     where = _where(port, lane)

@@ -22,7 +22,7 @@ from lightwarden.collector.readings import (
 from lightwarden.rules.findings import Assessment, Condition, WindowSource
 
 DEVICE = "hgl-core-1"
-PORT = "et-0/0/7"
+PORT = "sfp7"
 
 # 10GBASE-ER per-lane window, dBm: overload -1.0, Rx min (avg) -15.8.
 # source: standards.md IEEE 802.3 cl.52 table (from memory)

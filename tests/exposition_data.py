@@ -27,7 +27,7 @@ LR_SENSITIVITY_DBM = -14.4
 LR4_OVERLOAD_DBM = 4.5
 LR4_SENSITIVITY_DBM = -10.6
 
-ODD_PORT = 'Te1/0/2 "core"\\side\nB'
+ODD_PORT = 'sfp2 "core"\\side\nB'
 ODD_ALIAS = 'to "Harrowgate Lab" rack 4 \\ patch\npanel 7'
 
 
@@ -37,8 +37,8 @@ def lab_batch(device: str = "hg-core-1", taken_at: float = 1_800_000_000.0) -> R
     sfp = b.add_optic(
         OpticIdentity(
             device=device,
-            port="Te1/0/1",
-            alias="to hg-edge-3 Te0/1",
+            port="sfp1",
+            alias="to hg-edge-3 sfp1",
             form_factor="SFP+",
             pmd="10GBASE-LR",
             wavelength_nm=1310.0,

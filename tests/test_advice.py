@@ -179,17 +179,17 @@ def test_span_growth_and_wear_are_mentioned():
 
 def test_summaries_read_plainly():
     s = summarize(
-        Condition.NEAR_OVERLOAD, Quantity.RX_POWER, "et-0/0/7", 1, -1.6, "overload", -1.0, "module"
+        Condition.NEAR_OVERLOAD, Quantity.RX_POWER, "sfp7", 1, -1.6, "overload", -1.0, "module"
     )
-    assert s == "Rx power -1.6 dBm on et-0/0/7 lane 1 is 0.6 dB below overload (-1.0 dBm, module)"
+    assert s == "Rx power -1.6 dBm on sfp7 lane 1 is 0.6 dB below overload (-1.0 dBm, module)"
     t = summarize(
-        Condition.ALARM, Quantity.TEMPERATURE, "et-0/0/7", 0, 78.25, "high_alarm", 75.0, "module"
+        Condition.ALARM, Quantity.TEMPERATURE, "sfp7", 0, 78.25, "high_alarm", 75.0, "module"
     )
-    assert t == "Temperature 78.2 C on et-0/0/7 is 3.2 C over high alarm (75.0 C, module)"
-    d = summarize(Condition.DARK, Quantity.RX_POWER, "et-0/0/7", 2, None, "sensitivity", -15.8, "x")
-    assert d == "No light on et-0/0/7 lane 2 while the port is admin up"
-    r = resolved_summary(Quantity.RX_POWER, "et-0/0/7", 1, -7.96, Condition.NEAR_OVERLOAD)
-    assert r == "Rx power on et-0/0/7 lane 1 back to -8.0 dBm (was near overload)"
+    assert t == "Temperature 78.2 C on sfp7 is 3.2 C over high alarm (75.0 C, module)"
+    d = summarize(Condition.DARK, Quantity.RX_POWER, "sfp7", 2, None, "sensitivity", -15.8, "x")
+    assert d == "No light on sfp7 lane 2 while the port is admin up"
+    r = resolved_summary(Quantity.RX_POWER, "sfp7", 1, -7.96, Condition.NEAR_OVERLOAD)
+    assert r == "Rx power on sfp7 lane 1 back to -8.0 dBm (was near overload)"
 
 
 def test_zero_bias_says_the_transmitter_is_off_before_blaming_the_laser():

@@ -30,7 +30,7 @@ TIMEOUT = 10.0  # bound on every client operation in these tests (not a speed ch
 def _alert() -> AlertEvent:
     return AlertEvent(
         kind="open", key="k1", sequence=1, alertname="OpticRxNearOverload", severity="warning",
-        device="hg-core-1", port="Te1/0/1", lane=1, quantity="rx_power",
+        device="hg-core-1", port="sfp1", lane=1, quantity="rx_power",
         condition="near_overload", value=-1.0, unit="dBm", edge_name="overload", edge_value=0.5,
         window_source="pmd-table", margin_db=1.5, rate_per_day=None, summary="s", advice="a",
         caution="", starts_at=1.0,
@@ -216,7 +216,7 @@ def test_real_prometheus_scrapes_us(server: HttpServer, tmp_path: Path) -> None:
         while time.monotonic() < deadline:
             time.sleep(0.5)
             try:
-                q = 'lightwarden_alert_open or lightwarden_bias_amperes{port="Te1/0/1"} or up'
+                q = 'lightwarden_alert_open or lightwarden_bias_amperes{port="sfp1"} or up'
                 url = f"http://127.0.0.1:{web}/api/v1/query?query=" + urllib.parse.quote(q)
                 with urllib.request.urlopen(url, timeout=TIMEOUT) as resp:
                     result = json.loads(resp.read())["data"]["result"]

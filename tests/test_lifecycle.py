@@ -127,7 +127,7 @@ def test_dark_and_threshold_conditions_name_their_alerts():
     assert dark.caution == LASER_CAUTION
 
     b = BatchBuilder("hgl-edge-2")
-    o = b.add_optic(OpticIdentity(device="hgl-edge-2", port="xe-1/0/0"))
+    o = b.add_optic(OpticIdentity(device="hgl-edge-2", port="sfp10"))
     b.add(o, 0, Quantity.TEMPERATURE, 74.0)
     b.add(o, 0, Quantity.SUPPLY, 3.31)
     a = build_assessment(

@@ -92,7 +92,7 @@ def test_promtool_flags_a_bad_exposition() -> None:
 
 def test_units_and_values(exposition: Exposition) -> None:
     found = samples(exposition.body())
-    sfp = {"device": DEV, "port": "Te1/0/1"}
+    sfp = {"device": DEV, "port": "sfp1"}
     # source: standards.md / SFF-8472 worked decode (verified): bias 0x1770 = 12.000 mA
     assert one(found["lightwarden_bias_amperes"], **sfp, lane=1) == pytest.approx(0.012, abs=1e-12)
     # source: standards.md / SFF-8472 worked decode (verified): Rx 0x1F40 = -0.969 dBm
@@ -111,7 +111,7 @@ def test_units_and_values(exposition: Exposition) -> None:
 
 def test_window_edges_and_margins(exposition: Exposition) -> None:
     found = samples(exposition.body())
-    sfp = {"device": DEV, "port": "Te1/0/1", "lane": 1}
+    sfp = {"device": DEV, "port": "sfp1", "lane": 1}
     # source: standards.md / IEEE 802.3 10GBASE-LR row (verified): overload +0.5, Rx min -14.4
     assert one(found["lightwarden_rx_overload_dbm"], **sfp, window_source="pmd-table") == 0.5
     assert one(found["lightwarden_rx_sensitivity_dbm"], **sfp, window_source="pmd-table") == -14.4
@@ -229,8 +229,8 @@ def test_escape_label_value_per_text_format() -> None:
 def test_condition_and_severity(exposition: Exposition) -> None:
     found = samples(exposition.body())
     conds = {lab["port"]: lab["condition"] for lab, _ in found["lightwarden_optic_condition"]}
-    assert conds == {"Te1/0/1": "near_overload", ODD_PORT: "dark"}
-    assert one(found["lightwarden_optic_severity"], device=DEV, port="Te1/0/1") == 2
+    assert conds == {"sfp1": "near_overload", ODD_PORT: "dark"}
+    assert one(found["lightwarden_optic_severity"], device=DEV, port="sfp1") == 2
     assert one(found["lightwarden_optic_severity"], device=DEV, port=ODD_PORT) == 3
 
 
@@ -238,7 +238,7 @@ def test_module_threshold_flags(exposition: Exposition) -> None:
     found = samples(exposition.body())
     # bias 12 mA against the module's high warning 10 mA and high alarm 15 mA
     warn = [lab for lab, _ in found["lightwarden_threshold_warning"] if lab["device"] == DEV]
-    assert warn == [{"device": DEV, "port": "Te1/0/1", "lane": "1", "quantity": "bias"}]
+    assert warn == [{"device": DEV, "port": "sfp1", "lane": "1", "quantity": "bias"}]
     assert "lightwarden_threshold_alarm" not in found
 
 
@@ -303,7 +303,7 @@ def test_misaligned_assessment_still_exports_readings(exposition: Exposition) ->
     wrong.margin_low_db = wrong.margin_low_db[:3]
     exposition.update(ok_outcome(batch), wrong)
     found = samples(exposition.body())
-    assert one(found["lightwarden_bias_amperes"], device=DEV, port="Te1/0/1", lane=1) == 0.012
+    assert one(found["lightwarden_bias_amperes"], device=DEV, port="sfp1", lane=1) == 0.012
     assert not [
         lab for lab, _ in found.get("lightwarden_optic_condition", []) if lab["device"] == DEV
     ]
@@ -319,7 +319,7 @@ def test_duplicate_rows_and_ports_do_not_duplicate_series() -> None:
     chunks = exp.update(ok_outcome(batch))
     assert chunks.skipped_rows == 1
     found = samples(exp.body())
-    assert one(found["lightwarden_rx_power_dbm"], device=DEV, port="Te1/0/1", lane=1) < 0
+    assert one(found["lightwarden_rx_power_dbm"], device=DEV, port="sfp1", lane=1) < 0
     done = promtool_check(exp.body())
     assert done.returncode == 0, done.stdout + done.stderr
 
@@ -362,7 +362,7 @@ def test_open_alerts() -> None:
     events = [
         _alert(),
         _alert(kind="update", sequence=2),  # same alert again: one series
-        _alert(kind="resolve", key="k2", port="Te1/0/1", sequence=3),
+        _alert(kind="resolve", key="k2", port="sfp1", sequence=3),
         _alert(key="k3", alertname="OpticDark", severity="critical", lane=3),
     ]
     found = samples(render_alerts(events))
@@ -406,6 +406,6 @@ def test_partial_poll_exports_rows_and_counts_the_error() -> None:
     found = samples(exp.body())
     assert one(found["lightwarden_device_up"], device=DEV) == 0
     assert one(found["lightwarden_device_poll_errors_total"], device=DEV, kind="dropped") == 1
-    assert one(found["lightwarden_bias_amperes"], device=DEV, port="Te1/0/1", lane=1) == 0.012
+    assert one(found["lightwarden_bias_amperes"], device=DEV, port="sfp1", lane=1) == 0.012
     # not a success: no last-success time yet
     assert "lightwarden_device_last_success_timestamp_seconds" not in found

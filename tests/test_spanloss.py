@@ -42,7 +42,7 @@ def test_g652_typical_attenuation_at_1550():
     # 40 km of fibre alone is 11.0 dB.
     assert link_attenuation_db(40.0, 0.275, 0, 0.0, 0, 0.0) == pytest.approx(11.0)
     coeffs = PlanningCoefficients(sm_1550_db_per_km=0.275, connector_db=0.0, splice_db=0.0)
-    span = PlantSpan("hgl-a", "et-1", "hgl-b", "et-1", 40.0, "OS2", 1550.0, 0, 0)
+    span = PlantSpan("hgl-a", "sfp1", "hgl-b", "sfp1", 40.0, "OS2", 1550.0, 0, 0)
     assert engineered_loss_db(span, coeffs) == pytest.approx(11.0)
 
 
@@ -52,31 +52,31 @@ def test_planning_coefficients_by_band():
     assert fibre_db_per_km("OS2", 1310.0) == 0.4
     assert fibre_db_per_km("os2", 1550.0) == 0.25
     assert fibre_db_per_km("OM4", 850.0) == 3.0
-    lr = PlantSpan("hgl-a", "et-1", "hgl-b", "et-2", 10.0, "OS2", 1310.0, connectors=2, splices=2)
+    lr = PlantSpan("hgl-a", "sfp1", "hgl-b", "sfp2", 10.0, "OS2", 1310.0, connectors=2, splices=2)
     assert engineered_loss_db(lr) == pytest.approx(4.0 + 1.0 + 0.2)
-    sr = PlantSpan("hgl-a", "et-3", "hgl-b", "et-4", 0.3, "OM4", 850.0, connectors=2, pad_db=0.0)
+    sr = PlantSpan("hgl-a", "sfp3", "hgl-b", "sfp4", 0.3, "OM4", 850.0, connectors=2, pad_db=0.0)
     assert engineered_loss_db(sr) == pytest.approx(0.9 + 1.0)
-    padded = PlantSpan("hgl-a", "et-5", "hgl-c", "et-1", 40.0, "OS2", 1550.0, 4, 0, pad_db=5.0)
+    padded = PlantSpan("hgl-a", "sfp5", "hgl-c", "sfp1", 40.0, "OS2", 1550.0, 4, 0, pad_db=5.0)
     assert engineered_loss_db(padded) == pytest.approx(10.0 + 2.0 + 5.0)
 
 
 def test_bad_plant_records_name_the_span():
-    span = PlantSpan("hgl-a", "et-1", "hgl-b", "et-1", 10.0, "copper", 1310.0)
+    span = PlantSpan("hgl-a", "sfp1", "hgl-b", "sfp1", 10.0, "copper", 1310.0)
     with pytest.raises(ValueError, match=r"hgl-a et-1 -> hgl-b et-1: unknown fibre type 'copper'"):
         engineered_loss_db(span)
-    span = PlantSpan("hgl-a", "et-1", "hgl-b", "et-1", -2.0, "OS2", 1310.0)
+    span = PlantSpan("hgl-a", "sfp1", "hgl-b", "sfp1", -2.0, "OS2", 1310.0)
     with pytest.raises(ValueError, match="length_km"):
         engineered_loss_db(span)
 
 
 def _two_ends(tx_mw_a: list[float], rx_b: list[float | None]):
     a = BatchBuilder("hgl-a")
-    oa = a.add_optic(OpticIdentity(device="hgl-a", port="et-1", lanes=len(tx_mw_a)))
+    oa = a.add_optic(OpticIdentity(device="hgl-a", port="sfp1", lanes=len(tx_mw_a)))
     for lane, mw in enumerate(tx_mw_a, start=1):
         a.add_power_mw(oa, lane, Quantity.TX_POWER, mw)
     b = BatchBuilder("hgl-b")
-    ob = b.add_optic(OpticIdentity(device="hgl-b", port="et-9", lanes=len(rx_b)))
-    other = b.add_optic(OpticIdentity(device="hgl-b", port="et-10"))
+    ob = b.add_optic(OpticIdentity(device="hgl-b", port="sfp9", lanes=len(rx_b)))
+    other = b.add_optic(OpticIdentity(device="hgl-b", port="sfp10"))
     b.add(other, 1, Quantity.RX_POWER, -30.0)  # another port: must not be picked up
     for lane, dbm in enumerate(rx_b, start=1):
         if dbm is None:
@@ -86,7 +86,7 @@ def _two_ends(tx_mw_a: list[float], rx_b: list[float | None]):
     return a.build(T0), b.build(T0 + 2)
 
 
-SPAN = PlantSpan("hgl-a", "et-1", "hgl-b", "et-9", 10.0, "OS2", 1310.0, 2, 2)
+SPAN = PlantSpan("hgl-a", "sfp1", "hgl-b", "sfp9", 10.0, "OS2", 1310.0, 2, 2)
 
 
 def test_measured_loss_is_tx_minus_rx_per_lane():
@@ -130,7 +130,7 @@ def test_growth_against_the_span_baseline():
 
 
 def _optic(device, pmd, nm):
-    return OpticIdentity(device=device, port="et-1", pmd=pmd, wavelength_nm=nm)
+    return OpticIdentity(device=device, port="sfp1", pmd=pmd, wavelength_nm=nm)
 
 
 def test_matching_ends_raise_nothing():

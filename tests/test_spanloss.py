@@ -62,7 +62,7 @@ def test_planning_coefficients_by_band():
 
 def test_bad_plant_records_name_the_span():
     span = PlantSpan("hgl-a", "sfp1", "hgl-b", "sfp1", 10.0, "copper", 1310.0)
-    with pytest.raises(ValueError, match=r"hgl-a et-1 -> hgl-b et-1: unknown fibre type 'copper'"):
+    with pytest.raises(ValueError, match=r"hgl-a sfp1 -> hgl-b sfp1: unknown fibre type 'copper'"):
         engineered_loss_db(span)
     span = PlantSpan("hgl-a", "sfp1", "hgl-b", "sfp1", -2.0, "OS2", 1310.0)
     with pytest.raises(ValueError, match="length_km"):

@@ -92,7 +92,7 @@ def _render_table(rows: list[Any], failures: list[dict[str, object]]) -> str:
 
 
 def run_check(monitor: Any, as_json: bool) -> int:
-    from lightwarden.exporters.optic_rows import failed_device_row, optic_rows
+    from lightwarden.exporters.optic_rows import failed_device_row, optic_rows, worst_first
 
     views = asyncio.run(_poll_and_close(monitor))
     rows, failures = [], []
@@ -101,9 +101,7 @@ def run_check(monitor: Any, as_json: bool) -> int:
             failures.append(failed_device_row(v.outcome))
         else:
             rows.extend(optic_rows(v.assessment, monitor.targets))
-    t = monitor.targets
-    rows.sort(key=lambda r: (-r.severity, r.worst_margin(t.overload_db, t.sensitivity_db),
-                             r.device, r.port, r.lane))
+    worst_first(rows, monitor.targets)
     if as_json:
         doc: Any = [r.as_json() for r in rows]
         print(json.dumps(doc, indent=2))

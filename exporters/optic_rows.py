@@ -63,6 +63,13 @@ class OpticRow:
 _NOT_IN_JSON = frozenset({"severity", "value_notes", "worst_row"})
 
 
+def worst_first(rows: list[OpticRow], targets: MarginTargets) -> None:
+    """Sort in place: most severe first, then least margin left over its target."""
+    rows.sort(key=lambda r: (-r.severity, r.worst_margin(targets.overload_db,
+                                                         targets.sensitivity_db),
+                             r.device, r.port, r.lane))
+
+
 def _num(x: float) -> float | None:
     return None if math.isnan(x) else float(x)
 

@@ -12,7 +12,7 @@ from html import escape
 from typing import Any
 
 from lightwarden.exporters.http import HttpRequest, HttpServer, Response
-from lightwarden.exporters.optic_rows import OpticRow, optic_rows
+from lightwarden.exporters.optic_rows import OpticRow, optic_rows, worst_first
 from lightwarden.exporters.report import PlannerReport, build_report, render_report, report_json
 from lightwarden.rules.advice import LASER_CAUTION
 
@@ -39,9 +39,7 @@ class StatusPage:
                             "polled_at": o.started_at})
             if view.assessment is not None:
                 rows.extend(optic_rows(view.assessment, self.monitor.targets))
-        t = self.monitor.targets
-        rows.sort(key=lambda r: (-r.severity, r.worst_margin(t.overload_db, t.sensitivity_db),
-                                 r.device, r.port, r.lane))
+        worst_first(rows, self.monitor.targets)
         return rows, devices
 
     def api(self, _req: HttpRequest) -> Response:

@@ -49,10 +49,15 @@ def _enough(s: Series) -> bool:
 
 
 def advice_context(history: History, plant: Plant | None, device: str, port: str, lane: int,
-                   quantity: Quantity, now: float, days: float = 30.0) -> AdviceContext:
-    """What history says about one reading: its rate, the feeding laser, the span."""
+                   quantity: Quantity, now: float, days: float = 30.0,
+                   own: Series | None = None) -> AdviceContext:
+    """What history says about one reading: its rate, the feeding laser, the span.
+
+    ``own`` is the reading's own series over the same days, when the caller has it.
+    """
     since = now - days * DAY
-    own = history.series(device, port, lane, quantity, since)
+    if own is None:
+        own = history.series(device, port, lane, quantity, since)
     trend = fit_trend(own.times, own.values) if _enough(own) else None
     rate = trend.rate_per_day if trend is not None else None
     wear = growth = None
@@ -137,7 +142,7 @@ def _outlook(history: History, plant: Plant | None, w: RxWindow, targets: Margin
                                       now, horizon_s=horizon_s)
         edge_at = forecast_crossing(rx.times, rx.values, w.overload, now, horizon_s=horizon_s)
     ctx = advice_context(history, plant, w.device, w.port, w.lane, Quantity.RX_POWER, now,
-                         days=(now - since) / DAY)
+                         days=(now - since) / DAY, own=rx)
     return LaneOutlook(
         device=w.device, port=w.port, lane=w.lane, pmd=w.pmd,
         rx_power_dbm=float(rx.values[-1]) if len(rx) else None,

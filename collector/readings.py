@@ -14,6 +14,8 @@ from enum import IntEnum
 
 import numpy as np
 
+from lightwarden.collector.units import mw_to_dbm
+
 
 class Quantity(IntEnum):
     """What a reading measures. The integer codes are stable: arrays store them."""
@@ -197,15 +199,6 @@ class BatchBuilder:
             status=np.asarray(self._status, dtype=np.int8),
             notes=self._notes,
         )
-
-
-def mw_to_dbm(milliwatts: float) -> float:
-    """10*log10(P/1 mW). Callers handle P <= 0 (no light) before calling."""
-    return 10.0 * math.log10(milliwatts)
-
-
-def dbm_to_mw(dbm: float) -> float:
-    return 10.0 ** (dbm / 10.0)
 
 
 @dataclass(slots=True)

@@ -14,11 +14,11 @@ other(1) (or a private type) whose entPhySensorUnitsDisplay says "dBm".
 
 from __future__ import annotations
 
-import math
 import re
 from enum import Enum
 
 from lightwarden.collector.readings import LANE_QUANTITIES, Quantity, ReadingStatus
+from lightwarden.collector.units import watts_to_dbm
 
 # EntitySensorDataType (RFC 3433)
 OTHER = 1
@@ -173,7 +173,7 @@ def sensor_value(
             return None, ReadingStatus.INVALID, f"negative optical power ({physical:g} W)"
         if physical == 0:
             return None, ReadingStatus.NO_LIGHT, "no light (0 W)"
-        return 10.0 * math.log10(physical * 1000.0), ReadingStatus.OK, ""
+        return watts_to_dbm(physical), ReadingStatus.OK, ""
     if kind is SensorKind.POWER_DBM:
         if physical <= NO_LIGHT_DBM:
             return None, ReadingStatus.NO_LIGHT, f"no light ({physical:.2f} dBm at or below floor)"

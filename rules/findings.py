@@ -38,24 +38,40 @@ class Condition(IntEnum):
         return self.name.lower()
 
     @property
-    def severity(self) -> int:
-        """0 fine, 1 unknown, 2 warning, 3 critical."""
+    def severity(self) -> Severity:
+        """How bad, for "worst first" lists and alert severities."""
         return _SEVERITY[self]
 
 
+class Severity(IntEnum):
+    """The one severity order: everything that sorts or labels by severity reads it here."""
+
+    NONE = 0
+    INFO = 1  # no usable value: no evidence either way
+    WARNING = 2
+    CRITICAL = 3
+
+    @property
+    def word(self) -> str:
+        return self.name.lower()
+
+
 _SEVERITY = {
-    Condition.HEALTHY: 0,
-    Condition.UNKNOWN: 1,
-    Condition.NEAR_SENSITIVITY: 2,
-    Condition.NEAR_OVERLOAD: 2,
-    Condition.WARNING: 2,
-    Condition.BELOW_SENSITIVITY: 3,
-    Condition.OVERLOADED: 3,
-    Condition.ALARM: 3,
-    Condition.DARK: 3,
+    Condition.HEALTHY: Severity.NONE,
+    Condition.UNKNOWN: Severity.INFO,
+    Condition.NEAR_SENSITIVITY: Severity.WARNING,
+    Condition.NEAR_OVERLOAD: Severity.WARNING,
+    Condition.WARNING: Severity.WARNING,
+    Condition.BELOW_SENSITIVITY: Severity.CRITICAL,
+    Condition.OVERLOADED: Severity.CRITICAL,
+    Condition.ALARM: Severity.CRITICAL,
+    Condition.DARK: Severity.CRITICAL,
 }
 
-SEVERITY_WORDS = {0: "none", 1: "info", 2: "warning", 3: "critical"}
+#: severity per condition code, for vectorised "which rows may alert"
+SEVERITY_OF = np.array([int(_SEVERITY[c]) for c in sorted(Condition)], dtype=np.int8)
+
+SEVERITY_WORDS = {int(s): s.word for s in Severity}
 
 
 class WindowSource(IntEnum):

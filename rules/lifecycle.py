@@ -326,6 +326,19 @@ class AlertLifecycle:
     def snapshot(self) -> dict[str, Any]:
         return self.state.to_dict()
 
+    def load(self, snapshot: Mapping[str, Any]) -> None:
+        """Take up a saved state (after a restart); ValueError names what is damaged."""
+        self.state = LifecycleState.from_dict(snapshot)
+
+    def open_alerts(self) -> list[AlertEvent]:
+        """The last event sent for every alert not yet resolved, ordered by key.
+
+        The lifecycle is the one owner of open alerts: pages, metrics and the check
+        command all read them here.
+        """
+        tracks = self.state.tracks
+        return [t.last for _k, t in sorted(tracks.items()) if t.last is not None]
+
     # --- input ---------------------------------------------------------------------
 
     def observe(

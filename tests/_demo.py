@@ -1,6 +1,6 @@
 """Running the real `lightwarden demo` command as a child process, for end-to-end tests.
 
-``DemoProc`` starts ``python -m lightwarden.exporters.cli demo ...`` (the same entry point
+``DemoProc`` starts ``python -m lightwarden.exporters.app.cli demo ...`` (the same entry point
 as the installed `lightwarden` script) with its output captured to a log file, reads the
 metrics URL it prints, and scrapes it. ``Scrape`` indexes one scrape parsed with
 prometheus_client's own text parser (a reference parser outside the project).
@@ -81,7 +81,7 @@ class DemoProc:
         workdir.mkdir(parents=True, exist_ok=True)
         self.state_dir = workdir / "state"
         self.argv = [
-            sys.executable, "-m", "lightwarden.exporters.cli", "demo",
+            sys.executable, "-m", "lightwarden.exporters.app.cli", "demo",
             "--duration", f"{duration:g}", "--port", "0", "--interval", f"{interval:g}",
             "--hold", f"{hold:g}", "--speed", f"{speed:g}",
             "--state-dir", str(self.state_dir), *extra,

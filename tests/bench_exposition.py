@@ -28,7 +28,7 @@ from lightwarden.collector.readings import (
     ReadingBatch,
     ReadingStatus,
 )
-from lightwarden.exporters.metrics import Exposition
+from lightwarden.exporters.prometheus.exposition import Exposition
 from lightwarden.rules.findings import Assessment, Condition, WindowSource
 
 

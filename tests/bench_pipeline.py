@@ -15,8 +15,8 @@ import time
 import tracemalloc
 
 from lightwarden.collector.readings import BatchBuilder, OpticIdentity, PollOutcome, Quantity
-from lightwarden.exporters.metrics import Exposition
-from lightwarden.exporters.optic_rows import optic_rows
+from lightwarden.exporters.pages.rows import optic_rows
+from lightwarden.exporters.prometheus.exposition import Exposition
 from lightwarden.rules.assess import MarginTargets, assess
 from lightwarden.rules.catalogue import default_catalogue
 from lightwarden.rules.hysteresis import ConditionTracker

@@ -13,7 +13,7 @@ import pytest
 import yaml
 from _procs import require_binary, run
 
-from lightwarden.exporters.alert_rules import RuleParams, main, render_rules
+from lightwarden.exporters.prometheus.alert_rules import RuleParams, main, render_rules
 
 DEPLOY = Path(__file__).resolve().parent.parent / "deploy" / "prometheus"
 RULES = DEPLOY / "lightwarden-alerts.yml"

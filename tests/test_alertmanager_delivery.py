@@ -24,9 +24,9 @@ from _procs import (
     wait_for,
 )
 
-from lightwarden.exporters.alert_http import AlertDestination, RetryPolicy
-from lightwarden.exporters.delivery import Dispatcher
-from lightwarden.exporters.outbox import Outbox
+from lightwarden.exporters.alerts.delivery import Dispatcher
+from lightwarden.exporters.alerts.http import AlertDestination, RetryPolicy
+from lightwarden.exporters.alerts.outbox import Outbox
 
 pytestmark = [pytest.mark.external]
 

@@ -35,7 +35,7 @@ def lightwarden(*args: str, env: dict[str, str] | None = None, timeout: float = 
                 cwd: Path | None = None) -> subprocess.CompletedProcess[str]:
     full_env = {**os.environ, **(env or {})}
     return subprocess.run(
-        [sys.executable, "-m", "lightwarden.exporters.cli", *args],
+        [sys.executable, "-m", "lightwarden.exporters.app.cli", *args],
         capture_output=True, text=True, timeout=timeout, env=full_env, cwd=cwd,
     )
 
@@ -67,7 +67,7 @@ def lab_process(tmp_path_factory: pytest.TempPathFactory):
     base = _free_block(4)
     known = tmp / "known_hosts"
     proc = subprocess.Popen(
-        [sys.executable, "-m", "lightwarden.exporters.cli", "lab", "--port", str(base),
+        [sys.executable, "-m", "lightwarden.exporters.app.cli", "lab", "--port", str(base),
          "--known-hosts", str(known), "--duration", "600"],
         stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
     )
@@ -198,7 +198,7 @@ def test_missing_secret_names_the_variable_not_a_value(tmp_path: Path):
         "devices:\n  - {name: a, host: 127.0.0.1, port: 9, credentials: ro}\n"
     )
     env = {k: v for k, v in os.environ.items() if k != "LW_TEST_UNSET_VAR"}
-    res = subprocess.run([sys.executable, "-m", "lightwarden.exporters.cli", "check", "-c",
+    res = subprocess.run([sys.executable, "-m", "lightwarden.exporters.app.cli", "check", "-c",
                           str(site)], capture_output=True, text=True, env=env, timeout=60)
     assert res.returncode == 2
     assert "LW_TEST_UNSET_VAR is not set" in res.stderr and "device 'a'" in res.stderr

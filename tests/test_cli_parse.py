@@ -7,17 +7,17 @@ from pathlib import Path
 
 import pytest
 
-from lightwarden.collector.cli_parse import (
+from lightwarden.collector.readings import Quantity, ReadingStatus
+from lightwarden.collector.ssh.cli_parse import (
     compiled_template,
     parse_outputs,
     read_cell,
     run_template,
     split_transcript,
 )
-from lightwarden.collector.platforms.check import check_transcript
-from lightwarden.collector.platforms.check import main as check_main
-from lightwarden.collector.platforms.platform import load_platform
-from lightwarden.collector.readings import Quantity, ReadingStatus
+from lightwarden.collector.ssh.platforms.check import check_transcript
+from lightwarden.collector.ssh.platforms.check import main as check_main
+from lightwarden.collector.ssh.platforms.platform import load_platform
 
 RX, TX, BIAS = Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS
 

@@ -7,8 +7,8 @@ from pathlib import Path
 import pytest
 
 from lightwarden.collector.readings import Quantity
-from lightwarden.exporters.config import ConfigError, load_config, parse_config
-from lightwarden.exporters.service import build_overrides, lifecycle_config
+from lightwarden.exporters.app.config import ConfigError, load_config, parse_config
+from lightwarden.exporters.app.wiring import build_overrides, lifecycle_config
 from lightwarden.rules.assess import MarginTargets
 
 REPO = Path(__file__).resolve().parent.parent

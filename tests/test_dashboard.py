@@ -15,7 +15,7 @@ from pathlib import Path
 import yaml
 from _procs import require_binary
 
-from lightwarden.exporters.metrics import ALERT_OPEN, DEVICE_FAMILIES, TARGET_OVERLOAD
+from lightwarden.exporters.prometheus.exposition import ALERT_OPEN, DEVICE_FAMILIES, TARGET_OVERLOAD
 
 DASHBOARD = Path(__file__).resolve().parent.parent / "deploy" / "grafana" / \
     "lightwarden-dashboard.json"

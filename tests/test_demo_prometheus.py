@@ -61,7 +61,7 @@ def rules_file(tmp_path):
     """The generator's rules with short `for:` durations (its own options, nothing edited)."""
     out = tmp_path / "lightwarden-alerts.yml"
     res = subprocess.run(
-        [sys.executable, "-m", "lightwarden.exporters.cli", "rules", "-o", str(out),
+        [sys.executable, "-m", "lightwarden.exporters.app.cli", "rules", "-o", str(out),
          "--margin-for", "5s", "--past-edge-for", "3s", "--dark-for", "3s",
          "--alarm-for", "3s"],
         capture_output=True, text=True, timeout=60, check=False,

@@ -9,8 +9,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from lightwarden.collector.eeprom import Flag, decode, load
-from lightwarden.collector.eeprom.encode import encode_cmis
 from lightwarden.collector.readings import Quantity, Thresholds
+from lightwarden.fixtures.lab.encode import encode_cmis
 
 DATA = Path(__file__).parent / "data" / "eeprom"
 

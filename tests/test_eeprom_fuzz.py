@@ -28,7 +28,7 @@ from lightwarden.collector.eeprom import (
     to_json,
 )
 from lightwarden.collector.eeprom.command import decode_command
-from lightwarden.collector.eeprom.encode import encode_cmis, encode_sff8472, encode_sff8636
+from lightwarden.fixtures.lab.encode import encode_cmis, encode_sff8472, encode_sff8636
 
 DATA = Path(__file__).parent / "data" / "eeprom"
 

@@ -11,8 +11,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from lightwarden.collector.eeprom import Flag, decode, load
-from lightwarden.collector.eeprom.encode import ExternalCalibration, encode_sff8472
 from lightwarden.collector.readings import Quantity, Thresholds
+from lightwarden.fixtures.lab.encode import ExternalCalibration, encode_sff8472
 
 DATA = Path(__file__).parent / "data" / "eeprom"
 A2 = 256

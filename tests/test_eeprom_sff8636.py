@@ -9,8 +9,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from lightwarden.collector.eeprom import Flag, decode, load, parse_hexdump
-from lightwarden.collector.eeprom.encode import encode_sff8636
 from lightwarden.collector.readings import Quantity, Thresholds
+from lightwarden.fixtures.lab.encode import encode_sff8636
 
 DATA = Path(__file__).parent / "data" / "eeprom"
 

@@ -20,8 +20,8 @@ import pytest
 from _procs import require_binary
 from exposition_data import lab_assessment, lab_batch, ok_outcome
 
-from lightwarden.exporters.http import HttpRequest, HttpServer, accepts_gzip
-from lightwarden.exporters.metrics import Exposition
+from lightwarden.exporters.pages.http import HttpRequest, HttpServer, accepts_gzip
+from lightwarden.exporters.prometheus.exposition import Exposition
 from lightwarden.rules.findings import AlertEvent
 
 TIMEOUT = 10.0  # bound on every client operation in these tests (not a speed check)

@@ -1,7 +1,7 @@
 """The committed lab memory maps (fixtures/lab/maps/*.hex) through `lightwarden decode`.
 
 Every file is decoded by the real CLI entry (``exporters.cli.main``; a few through a
-subprocess of ``python -m lightwarden.exporters.cli``) and held against the lab part it
+subprocess of ``python -m lightwarden.exporters.app.cli``) and held against the lab part it
 belongs to (lab.yaml) and the lab model's readings at the lab epoch.
 
 Units and offsets: source: standards.md "SFF-8472" table (LSBs: temperature 1/256 C,
@@ -21,7 +21,7 @@ from pathlib import Path
 import pytest
 
 from lightwarden.collector.eeprom import load
-from lightwarden.exporters.cli import main
+from lightwarden.exporters.app.cli import main
 from lightwarden.fixtures.lab.make_maps import MAPS_DIR, stale_files
 from lightwarden.fixtures.lab.maps import EXTERNAL_CALIBRATION, layout_of, map_file_name
 from lightwarden.fixtures.lab.model import Lab, LabPort
@@ -175,7 +175,7 @@ def test_external_calibration_raw_bytes_by_offset():
 
 
 def _cli(*args: str) -> subprocess.CompletedProcess[str]:
-    return subprocess.run([sys.executable, "-m", "lightwarden.exporters.cli", *args],
+    return subprocess.run([sys.executable, "-m", "lightwarden.exporters.app.cli", *args],
                           capture_output=True, text=True, timeout=60, check=False)
 
 

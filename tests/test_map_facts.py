@@ -17,7 +17,6 @@ import numpy as np
 import pytest
 from _snmpd import require_binary
 
-from lightwarden.collector.eeprom.encode import encode_cmis, encode_sff8472, encode_sff8636
 from lightwarden.collector.map_facts import (
     OMA_ROW_NOTE,
     MapFacts,
@@ -25,10 +24,11 @@ from lightwarden.collector.map_facts import (
     apply_to_identity,
     facts_from_map,
 )
-from lightwarden.collector.platforms.platform import load_platform
 from lightwarden.collector.readings import BatchBuilder, OpticIdentity, Quantity, Thresholds
 from lightwarden.collector.snmp import EnginePool, SnmpCredentials, SnmpSource
-from lightwarden.collector.ssh_source import SshCredentials, SshSource, SshWorkers
+from lightwarden.collector.ssh.platforms.platform import load_platform
+from lightwarden.collector.ssh.source import SshCredentials, SshSource, SshWorkers
+from lightwarden.fixtures.lab.encode import encode_cmis, encode_sff8472, encode_sff8636
 from lightwarden.fixtures.lab.maps import lab_memory_map
 from lightwarden.fixtures.lab.model import (
     LAB_COMMUNITY,

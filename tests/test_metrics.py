@@ -26,7 +26,7 @@ from exposition_data import (
 from prometheus_client.parser import text_string_to_metric_families
 
 from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
-from lightwarden.exporters.metrics import (
+from lightwarden.exporters.prometheus.exposition import (
     DEVICE_FAMILIES,
     Exposition,
     ExpositionOptions,

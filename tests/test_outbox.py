@@ -8,7 +8,7 @@ import sqlite3
 import pytest
 from _alert_helpers import make_event
 
-from lightwarden.exporters.outbox import Outbox, OutboxError
+from lightwarden.exporters.alerts.outbox import Outbox, OutboxError
 
 
 @pytest.fixture

@@ -13,11 +13,12 @@ import pytest
 import yaml
 
 from lightwarden.collector.readings import BatchBuilder, OpticIdentity, PollOutcome, Quantity
-from lightwarden.exporters.cli import main
-from lightwarden.exporters.config import parse_config
-from lightwarden.exporters.history import History
-from lightwarden.exporters.report import build_report, render_report
-from lightwarden.exporters.service import Monitor
+from lightwarden.exporters.app.cli import main
+from lightwarden.exporters.app.config import parse_config
+from lightwarden.exporters.app.monitor import Monitor
+from lightwarden.exporters.app.wiring import build_monitor
+from lightwarden.exporters.pages.report import build_report, render_report
+from lightwarden.exporters.store.history import History
 
 DAY = 86400.0
 T0 = 1_780_000_000.0
@@ -67,7 +68,7 @@ def _run(monitor: Monitor, days: int, rx_rate: float, tx_rate: float) -> list:
 @pytest.fixture()
 def monitor(tmp_path: Path):
     cfg = parse_config(_config(tmp_path).read_text(), "site.yaml")
-    m = Monitor(cfg, base_dir=tmp_path)
+    m = build_monitor(cfg, base_dir=tmp_path)
     m.open_history()
     yield m
     m.close()
@@ -157,11 +158,11 @@ def test_lab_backfill_shows_the_wearing_laser_and_its_forecast(tmp_path: Path):
     rate. With the module's declared Rx low alarm of -18 dBm (lab.yaml LF-10GLR-10) and
     the 3 dB margin target (common practice), the target is lost at -15 dBm.
     """
-    from lightwarden.exporters.history import History
-    from lightwarden.exporters.plant import build_plant
+    from lightwarden.exporters.store.history import History
     from lightwarden.fixtures.lab.backfill import backfill, lab_batch
     from lightwarden.fixtures.lab.model import Lab
     from lightwarden.fixtures.lab.server import lab_plant
+    from lightwarden.rules.plant import build_plant
 
     lab = Lab.load()
     wall_now = 1_800_000_000.0
@@ -171,14 +172,14 @@ def test_lab_backfill_shows_the_wearing_laser_and_its_forecast(tmp_path: Path):
         "credentials": {"c": {"snmp_v2c": {"community": {"env": "UNUSED"}}}},
         "history": {"path": str(tmp_path / "h.sqlite")},
     }), "lab")
-    monitor = Monitor(cfg, base_dir=tmp_path, alerts=False)
+    monitor = build_monitor(cfg, base_dir=tmp_path, alerts=False)
     history = monitor.open_history()
     assert isinstance(history, History)
     backfill(lab, lambda b: history.record(b, force=True), lab.epoch, wall_now, days=40)
     for device in lab.devices:  # one live poll records the windows the rules chose
         monitor.handle(PollOutcome(device, wall_now, 0.1,
                                    lab_batch(lab, device, lab.epoch, wall_now)))
-    plant = build_plant(cfg, monitor.catalogue)
+    plant = build_plant(cfg.plant, monitor.catalogue)
     report = build_report(history, plant, monitor.targets, wall_now, days=25)
     lane = next(o for o in report.lanes if (o.device, o.port) == ("qm-core-a", "sfp5"))
     assert lane.window_source == "module" and lane.sensitivity_dbm == pytest.approx(-18.0)

@@ -14,9 +14,9 @@ import sys
 import pytest
 import yaml
 
-from lightwarden.exporters.config import ConfigError, parse_config
-from lightwarden.exporters.service import Monitor
-from lightwarden.exporters.shard import mine, owner
+from lightwarden.exporters.app.config import ConfigError, parse_config
+from lightwarden.exporters.app.shard import mine, owner
+from lightwarden.exporters.app.wiring import my_devices
 
 NAMES = [f"sw-{i:04d}" for i in range(3000)]
 
@@ -38,7 +38,7 @@ def test_adding_an_instance_moves_only_what_the_new_one_wins():
 
 
 def test_same_answer_in_another_process():
-    code = ("from lightwarden.exporters.shard import owner;"
+    code = ("from lightwarden.exporters.app.shard import owner;"
             "print([owner(f'sw-{i:04d}', 5) for i in range(50)])")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True, env={"PYTHONHASHSEED": "123"}).stdout
@@ -54,7 +54,7 @@ def _cfg(index: int, count: int) -> str:
 
 
 def test_monitor_polls_only_its_shard():
-    polled = [{d.name for d in Monitor(parse_config(_cfg(i, 3))).devices()} for i in range(3)]
+    polled = [{d.name for d in my_devices(parse_config(_cfg(i, 3)))} for i in range(3)]
     assert set().union(*polled) == set(NAMES[:60])
     assert sum(len(p) for p in polled) == 60
 

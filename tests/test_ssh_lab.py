@@ -17,10 +17,10 @@ from pathlib import Path
 import asyncssh
 import pytest
 
-from lightwarden.collector.platforms.platform import PlatformError, load_platform
 from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
 from lightwarden.collector.source import PollSource
-from lightwarden.collector.ssh_source import SshCredentials, SshSource, SshWorkers
+from lightwarden.collector.ssh.platforms.platform import PlatformError, load_platform
+from lightwarden.collector.ssh.source import SshCredentials, SshSource, SshWorkers
 from lightwarden.fixtures.lab.model import LAB_SSH_PASSWORD, LAB_SSH_USER, Lab, LabClock
 from lightwarden.fixtures.lab.ssh_cli import LabSshServer, simulated_listeners
 

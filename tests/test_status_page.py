@@ -11,9 +11,10 @@ import urllib.request
 import pytest
 import yaml
 
-from lightwarden.exporters.config import parse_config
-from lightwarden.exporters.http import HttpServer
-from lightwarden.exporters.service import Monitor
+from lightwarden.exporters.app.config import parse_config
+from lightwarden.exporters.app.wiring import build_monitor
+from lightwarden.exporters.pages.http import HttpServer
+from lightwarden.exporters.pages.status import StatusPage
 from lightwarden.fixtures.lab.model import LAB_ENV, LAB_SSH_PASSWORD
 from lightwarden.fixtures.lab.server import LabServers, lab_site_config
 from lightwarden.rules.advice import LASER_CAUTION
@@ -29,7 +30,7 @@ def served():
     endpoints = lab.start()
     data = lab_site_config(endpoints, lab=lab.lab)
     data["alerting"] = {"open_hold_s": 0, "resolve_hold_s": 0}
-    monitor = Monitor(parse_config(yaml.safe_dump(data), "test"))
+    monitor = build_monitor(parse_config(yaml.safe_dump(data), "test"))
 
     async def poll() -> None:
         try:
@@ -40,7 +41,7 @@ def served():
 
     asyncio.run(poll())
     server = HttpServer(monitor.exposition, port=0)
-    monitor.mount_pages(server)
+    StatusPage(monitor).mount(server)
     server.start()
     try:
         yield server, monitor

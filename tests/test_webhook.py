@@ -13,10 +13,10 @@ import pytest
 from _alert_helpers import Receiver, make_event
 from _procs import wait_for
 
-from lightwarden.exporters.alert_http import AlertDestination, RetryPolicy, redact_url
-from lightwarden.exporters.delivery import Dispatcher
-from lightwarden.exporters.outbox import Outbox
-from lightwarden.exporters.webhook import SCHEMA, sign, verify
+from lightwarden.exporters.alerts.delivery import Dispatcher
+from lightwarden.exporters.alerts.http import AlertDestination, RetryPolicy, redact_url
+from lightwarden.exporters.alerts.outbox import Outbox
+from lightwarden.exporters.alerts.webhook import SCHEMA, sign, verify
 
 FAST = RetryPolicy(base_s=0.02, cap_s=0.2, jitter=0.5)
 SECRET = "harrowgate-shared-secret-7f3a"

@@ -25,8 +25,10 @@ from prometheus_client.parser import text_string_to_metric_families
 
 from lightwarden.collector.map_facts import OMA_ROW_NOTE
 from lightwarden.collector.readings import Quantity, ReadingStatus
-from lightwarden.exporters.config import SiteConfig
-from lightwarden.exporters.service import DeviceView, Monitor
+from lightwarden.exporters.app.config import SiteConfig
+from lightwarden.exporters.app.monitor import Monitor
+from lightwarden.exporters.app.wiring import build_monitor
+from lightwarden.exporters.pages.view import DeviceView
 from lightwarden.fixtures.lab.model import LAB_ENV, Lab, LabClock
 from lightwarden.fixtures.lab.server import LabServers, lab_site_config
 from lightwarden.fixtures.lab.snmp_agent import EEPROM_OID
@@ -84,7 +86,7 @@ def lab_config(servers: LabServers, *, maps: bool = True, all_ssh: bool = False)
 
 
 def poll_once(cfg: SiteConfig, lab: Lab) -> tuple[Monitor, dict[str, DeviceView]]:
-    monitor = Monitor(cfg, clock=lambda: lab.epoch, alerts=False)
+    monitor = build_monitor(cfg, clock=lambda: lab.epoch, alerts=False)
 
     async def sweep() -> list[DeviceView]:
         try:

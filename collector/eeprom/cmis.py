@@ -13,9 +13,10 @@ from __future__ import annotations
 
 import struct
 
+from lightwarden.collector import units
 from lightwarden.collector.readings import Quantity
 
-from . import codes, units
+from . import codes
 from .fields import ascii_field, check, thresholds_block
 from .result import Flag, LaneMonitor, ModuleMap
 

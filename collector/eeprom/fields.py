@@ -9,9 +9,9 @@ from __future__ import annotations
 import math
 import struct
 
+from lightwarden.collector import units
 from lightwarden.collector.readings import Quantity, Thresholds
 
-from . import units
 from .result import EDGES, Checksum, Flag, ModuleMap
 
 _PRINTABLE = bytes(range(0x20, 0x7F))

@@ -11,9 +11,10 @@ import math
 import struct
 from collections.abc import Callable
 
+from lightwarden.collector import units
 from lightwarden.collector.readings import Quantity, Thresholds
 
-from . import codes, units
+from . import codes
 from .fields import ascii_field, check
 from .result import Flag, LaneMonitor, ModuleMap
 

@@ -9,9 +9,10 @@ from __future__ import annotations
 
 import struct
 
+from lightwarden.collector import units
 from lightwarden.collector.readings import Quantity
 
-from . import codes, units
+from . import codes
 from .fields import ascii_field, check, edge_flags, thresholds_block
 from .result import Flag, LaneMonitor, ModuleMap
 

@@ -1,1 +1,0 @@
-"""lightwarden.collector.platforms"""

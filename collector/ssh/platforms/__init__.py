@@ -1,0 +1,1 @@
+"""lightwarden.collector.ssh.platforms"""

@@ -1,0 +1,454 @@
+"""The `lightwarden` command.
+
+Exit status everywhere: 0 fine, 1 findings (an optic outside its targets, a decode with
+problems), 2 usage, config or collection error. Errors are one or more plain lines on
+stderr naming what and where; no tracebacks unless LIGHTWARDEN_DEBUG is set.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import json
+import logging
+import os
+import sys
+import time
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from lightwarden.exporters.app.config import ConfigError, SiteConfig, load_config
+
+if TYPE_CHECKING:
+    from lightwarden.exporters.app.monitor import Monitor
+
+log = logging.getLogger("lightwarden")
+
+EXIT_OK, EXIT_FINDINGS, EXIT_ERROR = 0, 1, 2
+
+
+class UsageError(Exception):
+    pass
+
+
+class LabError(Exception):
+    """The simulated lab could not start (a port in use or out of range)."""
+
+
+# -- helpers ------------------------------------------------------------------------------
+
+
+def _setup_logging(verbose: int) -> None:
+    level = logging.WARNING if verbose == 0 else logging.INFO if verbose == 1 else logging.DEBUG
+    logging.basicConfig(level=level, format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    # pysnmp and netmiko are chatty at INFO; their messages never carry our secrets, but
+    # keep them quiet unless asked for twice.
+    for noisy in ("pysnmp", "paramiko", "netmiko", "asyncssh", "apscheduler"):
+        logging.getLogger(noisy).setLevel(logging.WARNING if verbose < 2 else logging.INFO)
+    # A poll still running when its next turn comes is skipped by design (no overlap);
+    # the scheduler's warning for each would drown the log of a busy site.
+    if verbose < 2:
+        logging.getLogger("apscheduler.scheduler").setLevel(logging.ERROR)
+
+
+def _load(path: str) -> tuple[SiteConfig, Path]:
+    cfg = load_config(path)
+    return cfg, Path(path).resolve().parent
+
+
+# -- check --------------------------------------------------------------------------------
+
+
+def _fmt(v: float | None, width: int, prec: int = 2) -> str:
+    return f"{'-':>{width}}" if v is None else f"{v:>{width}.{prec}f}"
+
+
+def _render_table(rows: list[Any], failures: list[dict[str, object]]) -> str:
+    head = (f"{'DEVICE':<12} {'PORT':<7} {'L':>1} {'PMD':<13} {'RX dBm':>7} {'TX dBm':>7} "
+            f"{'BIAS mA':>7} {'TEMP C':>6} {'VCC V':>5} {'OVLD':>6} {'SENS':>6} "
+            f"{'M-OVLD':>6} {'M-SENS':>6} {'SOURCE':<9} CONDITION")
+    out = [head]
+    for r in rows:
+        out.append(
+            f"{r.device:<12.12} {r.port:<7.7} {r.lane:>1} {r.pmd or '?':<13.13} "
+            f"{_fmt(r.rx_power_dbm, 7)} {_fmt(r.tx_power_dbm, 7)} {_fmt(r.bias_ma, 7, 1)} "
+            f"{_fmt(r.temperature_c, 6, 1)} {_fmt(r.supply_v, 5, 2)} "
+            f"{_fmt(r.rx_overload_dbm, 6, 1)} {_fmt(r.rx_sensitivity_dbm, 6, 1)} "
+            f"{_fmt(r.margin_to_overload_db, 6, 1)} {_fmt(r.margin_to_sensitivity_db, 6, 1)} "
+            f"{r.window_source:<9} {r.condition}"
+            + (f"  ({'; '.join(r.value_notes)})" if r.value_notes else "")
+        )
+    for f in failures:
+        out.append(f"{f['device']:<12} poll failed ({f['error_kind']}): {f['error']}")
+    advised = [r for r in rows if r.advice]
+    if advised:
+        out += ["", "What to do:"]
+        out += [f"  {r.device} {r.port} lane {r.lane} ({r.condition}): {r.advice}"
+                for r in advised]
+        caution = next((r.caution for r in advised if r.caution), "")
+        if caution:
+            out += ["", caution]
+    return "\n".join(out)
+
+
+def run_check(monitor: Monitor, as_json: bool) -> int:
+    from lightwarden.exporters.pages.rows import failed_device_row, optic_rows, worst_first
+
+    views = asyncio.run(_poll_and_close(monitor))
+    rows, failures = [], []
+    for v in views:
+        if v.assessment is None:
+            failures.append(failed_device_row(v.outcome))
+        else:
+            rows.extend(optic_rows(v.assessment, monitor.targets))
+    worst_first(rows, monitor.targets)
+    if as_json:
+        doc: Any = [r.as_json() for r in rows]
+        print(json.dumps(doc, indent=2))
+        for f in failures:
+            print(f"error: {f['device']}: {f['error']}", file=sys.stderr)
+    else:
+        print(_render_table(rows, failures))
+    if failures:
+        return EXIT_ERROR
+    return EXIT_FINDINGS if any(r.severity >= 2 for r in rows) else EXIT_OK
+
+
+async def _poll_and_close(monitor: Monitor) -> list[Any]:
+    try:
+        return await monitor.poll_all()
+    finally:
+        monitor.close()
+
+
+def _adhoc_config(args: argparse.Namespace) -> SiteConfig:
+    from lightwarden.exporters.app.config import parse_config
+
+    target = args.target
+    host, _, port = target.rpartition(":") if target.count(":") == 1 else (target, "", "")
+    if not host:
+        host, port = target, ""
+    try:
+        port_n = int(port) if port else 161
+    except ValueError:
+        raise UsageError(f"{target!r}: port must be a number") from None
+    if args.v3_user:
+        cred: dict[str, Any] = {"snmp_v3": {
+            "user": args.v3_user, "auth_protocol": args.auth_protocol,
+            "auth_key": {"env": args.auth_key_env}, "priv_protocol": args.priv_protocol,
+            "priv_key": {"env": args.priv_key_env}}}
+    elif args.community_env:
+        cred = {"snmp_v2c": {"community": {"env": args.community_env}}}
+    elif args.community:
+        # The community given on the command line travels through the environment of
+        # this process only, so the config machinery never holds it inline.
+        os.environ["LIGHTWARDEN_ADHOC_COMMUNITY"] = args.community
+        cred = {"snmp_v2c": {"community": {"env": "LIGHTWARDEN_ADHOC_COMMUNITY"}}}
+    else:
+        raise UsageError("give --community, --community-env or --v3-user")
+    import yaml
+
+    data = {"site": "adhoc", "credentials": {"adhoc": cred},
+            "poll": {"timeout_s": args.timeout, "retries": args.retries},
+            "devices": [{"name": host, "host": host, "port": port_n, "credentials": "adhoc"}]}
+    return parse_config(yaml.safe_dump(data), "(command line)")
+
+
+def cmd_check(args: argparse.Namespace) -> int:
+    from lightwarden.exporters.app.wiring import build_monitor
+
+    if args.config and args.target:
+        raise UsageError("give either -c SITE.yaml or HOST[:PORT], not both")
+    if args.config:
+        cfg, base = _load(args.config)
+    elif args.target:
+        cfg, base = _adhoc_config(args), Path.cwd()
+    else:
+        raise UsageError("give -c SITE.yaml or HOST[:PORT]")
+    monitor = build_monitor(cfg, base_dir=base, alerts=False)
+    monitor.build_sources()
+    return run_check(monitor, args.json)
+
+
+def cmd_validate(args: argparse.Namespace) -> int:
+    from lightwarden.exporters.app.wiring import build_catalogue, build_overrides
+
+    cfg, _base = _load(args.config)
+    build_catalogue(cfg)
+    build_overrides(cfg)
+    print(f"{args.config}: ok ({len(cfg.devices)} devices, {len(cfg.overrides)} overrides)")
+    return EXIT_OK
+
+
+# -- run / demo ---------------------------------------------------------------------------
+
+
+def cmd_run(args: argparse.Namespace) -> int:
+    from lightwarden.exporters.app.runtime import Service
+    from lightwarden.exporters.app.wiring import build_monitor
+
+    cfg, base = _load(args.config)
+    monitor = build_monitor(cfg, base_dir=base)
+    monitor.build_sources()
+    monitor.open_history()
+    service = Service(monitor, cfg, base)
+    print(f"lightwarden: {len(cfg.devices)} devices; metrics at {service.url}/metrics",
+          flush=True)
+    service.serve()
+    return EXIT_OK
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    import yaml
+
+    from lightwarden.exporters.app.config import parse_config
+    from lightwarden.exporters.app.runtime import Service
+    from lightwarden.exporters.app.wiring import build_monitor
+    from lightwarden.fixtures.lab.model import LAB_ENV
+    from lightwarden.fixtures.lab.server import LabServers, lab_site_config
+
+    os.environ.update(LAB_ENV)
+    # Each demo starts afresh: a new lab has no past alerts or readings of its own.
+    state = Path(args.state_dir)
+    for name in ("outbox.sqlite", "history.sqlite"):
+        for suffix in ("", "-wal", "-shm"):
+            (state / (name + suffix)).unlink(missing_ok=True)
+    lab = LabServers(speed=args.speed, base_port=0)
+    endpoints = _start_lab(lab)
+    try:
+        data = lab_site_config(endpoints, interval_s=args.interval, lab=lab.lab)
+        data["history"] = {"path": str(Path(args.state_dir) / "history.sqlite"),
+                           "sample_every_s": args.interval}
+        data["listen"] = {"host": "127.0.0.1", "port": args.port}
+        # Short holds so the scripted stories show within minutes of wall time.
+        data["conditions"] = {"hold_s": args.hold, "clear_hold_s": 2 * args.hold,
+                              "hysteresis_db": 0.5}
+        alerting: dict[str, Any] = {"resolve_hold_s": 0.0,
+                                    "outbox_path": str(Path(args.state_dir) / "outbox.sqlite"),
+                                    "labels": {"site": "quillmoor"}}
+        if args.alertmanager:
+            alerting["alertmanager"] = [{"url": args.alertmanager}]
+        if args.webhook:
+            alerting["webhooks"] = [{"url": args.webhook}]
+        data["alerting"] = alerting
+        cfg = parse_config(yaml.safe_dump(data), "(demo)")
+        monitor = build_monitor(cfg, base_dir=Path.cwd())
+        monitor.build_sources()
+        history = monitor.open_history()
+        if history is not None and args.backfill_days > 0:
+            from lightwarden.fixtures.lab.backfill import backfill
+
+            backfill(lab.lab, lambda b: history.record(b, force=True), lab.clock.now(),
+                     time.time(), days=args.backfill_days)
+        service = Service(monitor, cfg, Path.cwd())
+        n_optics = len(lab.lab.optic_ports())
+        print(f"lightwarden demo: Quillmoor lab, {len(lab.lab.devices)} switches, "
+              f"{n_optics} optics, lab clock x{args.speed:g}", flush=True)
+        for name, port in endpoints.snmp.items():
+            print(f"  lab {name}: snmp udp://127.0.0.1:{port}  "
+                  f"ssh 127.0.0.1:{endpoints.ssh[name]}", flush=True)
+        print(f"  metrics: {service.url}/metrics", flush=True)
+        print(f"  status:  {service.url}/", flush=True)
+        if args.alertmanager:
+            print(f"  alerts to: {args.alertmanager}", flush=True)
+        if args.webhook:
+            print("  alert events to the webhook given", flush=True)
+        service.serve(args.duration)
+    finally:
+        lab.stop()
+    return EXIT_OK
+
+
+def _start_lab(lab: Any) -> Any:
+    from lightwarden.fixtures.lab.snmp_agent import LabAgentError
+
+    try:
+        return lab.start()
+    except (LabAgentError, OSError) as exc:
+        raise LabError(f"the lab could not start: {exc}") from None
+
+
+def cmd_lab(args: argparse.Namespace) -> int:
+    from lightwarden.exporters.app.runtime import Stop
+    from lightwarden.fixtures.lab.server import LabServers
+
+    known = Path(args.known_hosts)
+    known.parent.mkdir(parents=True, exist_ok=True)
+    lab = LabServers(speed=args.speed, base_port=args.port, known_hosts_path=known)
+    endpoints = _start_lab(lab)
+    print(f"lightwarden lab: {len(endpoints.snmp)} switches, lab clock x{args.speed:g}",
+          flush=True)
+    for name, port in endpoints.snmp.items():
+        print(f"  {name}: snmp udp 127.0.0.1:{port}, ssh tcp 127.0.0.1:{endpoints.ssh[name]}",
+              flush=True)
+    print(f"  ssh host keys written to {known}", flush=True)
+    stop = Stop()
+    stop.install()
+    try:
+        deadline = None if args.duration is None else time.monotonic() + args.duration
+        while not stop.event.wait(0.2):
+            if deadline is not None and time.monotonic() >= deadline:
+                break
+    finally:
+        lab.stop()
+    return EXIT_OK
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    from lightwarden.exporters.app.wiring import build_monitor
+    from lightwarden.exporters.pages.report import build_report, render_report, report_json
+
+    cfg, base = _load(args.config)
+    monitor = build_monitor(cfg, base_dir=base, alerts=False)
+    path = Path(cfg.history.path)
+    if not path.is_absolute():
+        path = base / path
+    if not path.exists():
+        raise ConfigError(f"history.path {path}: no history yet (run `lightwarden run` first)")
+    history = monitor.open_history()
+    assert history is not None
+    try:
+        report = build_report(history, monitor.plant_with_history(), monitor.targets,
+                              time.time(), days=args.days)
+    finally:
+        monitor.close()
+    if args.json:
+        print(json.dumps(report_json(report), indent=2))
+    else:
+        print(render_report(report))
+    return EXIT_OK
+
+
+def cmd_decode(args: argparse.Namespace) -> int:
+    from lightwarden.collector.eeprom.command import decode_command
+
+    code, text = decode_command(args.file, args.json)
+    stream = sys.stderr if code == EXIT_ERROR else sys.stdout
+    print(text, file=stream)
+    return code
+
+
+def cmd_rules(args: argparse.Namespace) -> int:
+    from lightwarden.exporters.prometheus.alert_rules import run
+
+    return run(args)
+
+
+# -- parser -------------------------------------------------------------------------------
+
+
+def _port(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a port number") from None
+    if not 0 <= value <= 65535:
+        raise argparse.ArgumentTypeError(f"{value} is not a port (0..65535)")
+    return value
+
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="lightwarden",
+        description="Optical diagnostics monitor: windows, margins, conditions, alerts.",
+    )
+    p.add_argument("-v", "--verbose", action="count", default=0, help="more logging (-vv)")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+
+    d = sub.add_parser("demo", help="run the simulated lab and the monitor in one process")
+    d.add_argument("--duration", type=float, default=None, metavar="SECONDS",
+                   help="stop after this many seconds (default: until Ctrl-C)")
+    d.add_argument("--speed", type=float, default=60.0, metavar="N",
+                   help="lab clock runs N times real time (default 60: a lab hour a minute)")
+    d.add_argument("--port", type=_port, default=9817, help="metrics/status port (0: any)")
+    d.add_argument("--interval", type=float, default=5.0, help="poll interval, seconds")
+    d.add_argument("--hold", type=float, default=10.0,
+                   help="condition hold time, seconds (demo default is short)")
+    d.add_argument("--alertmanager", metavar="URL", help="send alerts to this Alertmanager")
+    d.add_argument("--webhook", metavar="URL", help="send alert events to this webhook")
+    d.add_argument("--state-dir", default="var/demo",
+                   help="where the demo keeps its outbox and history")
+    d.add_argument("--backfill-days", type=float, default=60.0, metavar="DAYS",
+                   help="give the demo this many days of lab history first, so the "
+                        "planners' report has something to say (0: none)")
+    d.set_defaults(func=cmd_demo)
+
+    r = sub.add_parser("run", help="the monitor daemon")
+    r.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    r.set_defaults(func=cmd_run)
+
+    c = sub.add_parser("check", help="poll every device once and print each optic")
+    c.add_argument("-c", "--config", metavar="SITE.yaml")
+    c.add_argument("target", nargs="?", metavar="HOST[:PORT]", help="one SNMP device, ad hoc")
+    c.add_argument("--json", action="store_true", help="print a JSON array")
+    c.add_argument("--community", help="SNMP v2c community (visible to other local users; "
+                   "prefer --community-env)")
+    c.add_argument("--community-env", metavar="VAR", help="read the community from VAR")
+    c.add_argument("--v3-user", metavar="USER", help="SNMPv3 user (authPriv)")
+    c.add_argument("--auth-protocol", default="SHA-256",
+                   choices=["SHA", "SHA-224", "SHA-256", "SHA-384", "SHA-512"])
+    c.add_argument("--priv-protocol", default="AES-128", choices=["AES-128", "AES-192", "AES-256"])
+    c.add_argument("--auth-key-env", default="LIGHTWARDEN_SNMP_AUTH_KEY", metavar="VAR")
+    c.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR")
+    c.add_argument("--timeout", type=float, default=2.0, help="seconds per SNMP request")
+    c.add_argument("--retries", type=int, default=1)
+    c.set_defaults(func=cmd_check)
+
+    v = sub.add_parser("validate", help="check a site config without polling")
+    v.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    v.set_defaults(func=cmd_validate)
+
+    lab = sub.add_parser("lab", help="serve only the simulated lab (SNMP and SSH)")
+    lab.add_argument("--port", type=_port, default=16161,
+                     help="first port: device i answers SNMP (UDP) and SSH (TCP) on PORT+i")
+    lab.add_argument("--speed", type=float, default=1.0, help="lab clock speed-up")
+    lab.add_argument("--duration", type=float, default=None, metavar="SECONDS")
+    lab.add_argument("--known-hosts", default="var/lab_known_hosts",
+                     help="where to write the lab's SSH host keys")
+    lab.set_defaults(func=cmd_lab)
+
+    rep = sub.add_parser("report", help="planners' report: ageing links, forecasts, span loss")
+    rep.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    rep.add_argument("--days", type=float, default=90.0, help="history to fit (default 90)")
+    rep.add_argument("--json", action="store_true")
+    rep.set_defaults(func=cmd_report)
+
+    dec = sub.add_parser("decode", help="decode a module memory map (binary or hex dump)")
+    dec.add_argument("file", metavar="FILE")
+    dec.add_argument("--json", action="store_true")
+    dec.set_defaults(func=cmd_decode)
+
+    from lightwarden.exporters.prometheus.alert_rules import build_parser as rules_parser
+
+    ru = sub.add_parser("rules", help="write Prometheus alerting rules for our metrics")
+    rules_parser(ru)
+    ru.set_defaults(func=cmd_rules)
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help(sys.stderr)
+        return EXIT_ERROR
+    _setup_logging(args.verbose)
+    try:
+        return int(args.func(args))
+    except (ConfigError, UsageError, LabError) as exc:
+        for line in str(exc).splitlines():
+            print(f"lightwarden {args.command}: {line}", file=sys.stderr)
+        return EXIT_ERROR
+    except KeyboardInterrupt:
+        return EXIT_OK
+    except Exception as exc:  # the last line of defence: no tracebacks for operators
+        if os.environ.get("LIGHTWARDEN_DEBUG"):
+            raise
+        print(f"lightwarden {args.command}: unexpected error: {type(exc).__name__}: {exc} "
+              "(set LIGHTWARDEN_DEBUG=1 for details)", file=sys.stderr)
+        return EXIT_ERROR
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,176 @@
+"""Config -> parts: the catalogue, window overrides, margin targets, hysteresis and alert
+policies, the plant, this instance's share of the devices, and the monitor built of them."""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+from lightwarden.collector.entry import BuildContext, SharedParts
+from lightwarden.collector.readings import Quantity
+from lightwarden.collector.source import PollSource
+from lightwarden.exporters.app.config import ConfigError, Device, SiteConfig
+from lightwarden.exporters.app.monitor import Monitor, MonitorParts
+from lightwarden.exporters.app.shard import mine
+from lightwarden.exporters.app.sources import build_sources
+from lightwarden.exporters.prometheus.exposition import Exposition
+from lightwarden.exporters.store.history import History, HistoryError
+from lightwarden.rules.assess import MarginTargets
+from lightwarden.rules.catalogue import Catalogue, PmdSpec, default_catalogue
+from lightwarden.rules.hysteresis import ConditionTracker, HysteresisPolicy
+from lightwarden.rules.lifecycle import AlertLifecycle, LifecycleConfig, PolicyOverride
+from lightwarden.rules.plant import Plant, build_plant
+from lightwarden.rules.windows import WindowOverride, WindowResolver
+
+
+def build_catalogue(cfg: SiteConfig) -> Catalogue:
+    base = default_catalogue()
+    if not cfg.pmd_additions:
+        return base
+    return base.with_additions(
+        PmdSpec(
+            name=a.name,
+            clause="",
+            wavelength_min_nm=a.wavelength_min_nm,
+            wavelength_max_nm=a.wavelength_max_nm,
+            reach_m=a.reach_m,
+            lanes=a.lanes,
+            tx_min_dbm=a.tx_min_dbm,
+            tx_max_dbm=a.tx_max_dbm,
+            rx_overload_dbm=a.rx_overload_dbm,
+            rx_min_avg_dbm=a.rx_min_avg_dbm,
+            source=a.source,
+        )
+        for a in cfg.pmd_additions
+    )
+
+
+def build_overrides(cfg: SiteConfig) -> list[WindowOverride]:
+    out = []
+    for i, o in enumerate(cfg.overrides):
+        device = port = None
+        if o.port is not None:
+            device, port = o.port.split()
+        try:
+            out.append(
+                WindowOverride(
+                    quantity=Quantity[o.quantity.upper()],
+                    device=device,
+                    port=port,
+                    part_number=o.part_number,
+                    lane=o.lane,
+                    low_alarm=o.low_alarm,
+                    low_warning=o.low_warning,
+                    high_warning=o.high_warning,
+                    high_alarm=o.high_alarm,
+                    rx_overload=o.rx_overload_dbm,
+                    rx_sensitivity=o.rx_sensitivity_dbm,
+                )
+            )
+        except ValueError as exc:
+            raise ConfigError(f"overrides[{i}]: {exc}") from None
+    return out
+
+
+def margin_targets(cfg: SiteConfig) -> MarginTargets:
+    return MarginTargets(cfg.margins.sensitivity_db, cfg.margins.overload_db)
+
+
+def hysteresis_policy(cfg: SiteConfig) -> HysteresisPolicy:
+    c = cfg.conditions
+    return HysteresisPolicy(
+        hold_s=c.hold_s,
+        clear_hold_s=c.clear_hold_s,
+        hysteresis_db=c.hysteresis_db,
+        hysteresis_bias_ma=c.hysteresis_bias_ma,
+        hysteresis_temperature_c=c.hysteresis_temperature_c,
+        hysteresis_supply_v=c.hysteresis_supply_v,
+    )
+
+
+def lifecycle_config(cfg: SiteConfig, targets: MarginTargets) -> LifecycleConfig:
+    per_quantity: dict[Quantity, PolicyOverride] = {}
+    per_lane: dict[tuple[Quantity, int], PolicyOverride] = {}
+    for h in cfg.alerting.holds:
+        q = Quantity[h.quantity.upper()]
+        override = PolicyOverride(open_hold_s=h.open_hold_s, resolve_hold_s=h.resolve_hold_s,
+                                  update_step=h.update_step)
+        if h.lane is None:
+            per_quantity[q] = override
+        else:
+            per_lane[(q, h.lane)] = override
+    return LifecycleConfig(
+        open_hold_s=cfg.alerting.open_hold_s,
+        resolve_hold_s=cfg.alerting.resolve_hold_s,
+        per_quantity=per_quantity,
+        per_lane=per_lane,
+        targets=targets,
+    )
+
+
+def plant_of(cfg: SiteConfig, catalogue: Catalogue,
+             pmd_of: dict[tuple[str, str], str] | None = None) -> Plant:
+    return build_plant(cfg.plant, catalogue, pmd_of)
+
+
+def my_devices(cfg: SiteConfig) -> list[Device]:
+    """The configured devices this instance polls (all, unless the site is sharded)."""
+    sh = cfg.shard
+    if sh.count == 1:
+        return list(cfg.devices)
+    names = set(mine([d.name for d in cfg.devices], sh.index, sh.count))
+    return [d for d in cfg.devices if d.name in names]
+
+
+def open_history(cfg: SiteConfig, base_dir: Path) -> History | None:
+    """The reading history (for trends, advice and the planners' report), if kept."""
+    h = cfg.history
+    if not h.enabled:
+        return None
+    path = Path(h.path)
+    if not path.is_absolute():
+        path = base_dir / path
+    try:
+        return History(path, every_s=h.sample_every_s, keep_days=h.keep_days)
+    except HistoryError as exc:
+        raise ConfigError(f"history.path: {exc}") from None
+
+
+def make_sources(cfg: SiteConfig, base_dir: Path, catalogue: Catalogue,
+                 shared: SharedParts) -> list[PollSource]:
+    ctx = BuildContext(base_dir=base_dir, timeout_s=cfg.poll.timeout_s,
+                       retries=cfg.poll.retries,
+                       pmd_names=tuple(s.name for s in catalogue), shared=shared)
+    return build_sources(cfg, my_devices(cfg), ctx)
+
+
+def build_monitor(
+    cfg: SiteConfig,
+    *,
+    base_dir: Path | None = None,
+    clock: Callable[[], float] = time.time,
+    alerts: bool = True,
+    lifecycle: AlertLifecycle | None = None,
+) -> Monitor:
+    """A monitor for this site config; sources are built (and secrets read) on first use."""
+    base = base_dir or Path.cwd()
+    catalogue = build_catalogue(cfg)
+    targets = margin_targets(cfg)
+    shared = SharedParts()
+    parts = MonitorParts(
+        site=cfg.site,
+        catalogue=catalogue,
+        resolver=WindowResolver(catalogue, build_overrides(cfg)),
+        targets=targets,
+        tracker=ConditionTracker(hysteresis_policy(cfg)),
+        lifecycle=lifecycle or AlertLifecycle(lifecycle_config(cfg, targets)),
+        exposition=Exposition(margin_target_overload_db=targets.overload_db,
+                              margin_target_sensitivity_db=targets.sensitivity_db),
+        plant=plant_of(cfg, catalogue),
+        plant_with=lambda pmd_of: plant_of(cfg, catalogue, pmd_of),
+        make_sources=lambda: make_sources(cfg, base, catalogue, shared),
+        make_history=lambda: open_history(cfg, base),
+        shared=shared,
+    )
+    return Monitor(parts, clock=clock, alerts=alerts)

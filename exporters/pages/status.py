@@ -1,0 +1,150 @@
+"""The status page (`/`) and its JSON twin (`/api/optics`): worst optics first.
+
+Built per request from the monitor's latest view of each device; the rows are the same
+ones `lightwarden check` prints, so the page, the JSON and the CLI never disagree.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from html import escape
+
+from lightwarden.exporters.pages.http import HttpRequest, HttpServer, Response
+from lightwarden.exporters.pages.report import (
+    PlannerReport,
+    build_report,
+    render_report,
+    report_json,
+)
+from lightwarden.exporters.pages.rows import OpticRow, optic_rows, worst_first
+from lightwarden.exporters.pages.view import MonitorView
+from lightwarden.rules.advice import LASER_CAUTION
+
+_CLASS = {0: "ok", 1: "unknown", 2: "warn", 3: "crit"}
+
+
+class StatusPage:
+    def __init__(self, monitor: MonitorView) -> None:
+        self.monitor = monitor
+
+    def mount(self, server: HttpServer) -> None:
+        server.add_route("/", self.page)
+        server.add_route("/api/optics", self.api)
+        server.add_route("/report", self.report_text)
+        server.add_route("/api/report", self.report_api)
+
+    def rows(self) -> tuple[list[OpticRow], list[dict[str, object]]]:
+        rows: list[OpticRow] = []
+        devices: list[dict[str, object]] = []
+        for name, view in sorted(self.monitor.views.items()):
+            o = view.outcome
+            devices.append({"device": name, "up": o.ok or view.assessment is not None,
+                            "error": o.error, "error_kind": o.error_kind,
+                            "polled_at": o.started_at})
+            if view.assessment is not None:
+                rows.extend(optic_rows(view.assessment, self.monitor.targets))
+        worst_first(rows, self.monitor.targets)
+        return rows, devices
+
+    def api(self, _req: HttpRequest) -> Response:
+        rows, devices = self.rows()
+        alerts = [
+            {"alertname": a.alertname, "severity": a.severity, "device": a.device,
+             "port": a.port, "lane": a.lane, "quantity": a.quantity, "summary": a.summary,
+             "advice": a.advice, "caution": a.caution}
+            for a in self.monitor.open_alerts()
+        ]
+        links = [{"kind": i.kind, "severity": i.severity, "text": i.text}
+                 for i in self.monitor.link_issues()]
+        doc = {"devices": devices, "optics": [r.as_json() for r in rows], "alerts": alerts,
+               "links": links}
+        return 200, "application/json", json.dumps(doc).encode()
+
+    def _report(self) -> PlannerReport | None:
+        m = self.monitor
+        if m.history is None:
+            return None
+        return build_report(m.history, m.plant_with_history(), m.targets, time.time())
+
+    def report_text(self, _req: HttpRequest) -> Response:
+        report = self._report()
+        if report is None:
+            return 404, "text/plain; charset=utf-8", b"no history kept by this monitor\n"
+        return 200, "text/plain; charset=utf-8", render_report(report, limit=500).encode()
+
+    def report_api(self, _req: HttpRequest) -> Response:
+        report = self._report()
+        if report is None:
+            return 404, "application/json", b'{"error": "no history kept by this monitor"}'
+        return 200, "application/json", json.dumps(report_json(report)).encode()
+
+    def page(self, _req: HttpRequest) -> Response:
+        rows, devices = self.rows()
+        site = escape(self.monitor.site)
+        out = [
+            "<!doctype html><html><head><meta charset='utf-8'>",
+            f"<title>lightwarden: {site}</title>",
+            "<meta http-equiv='refresh' content='15'>",
+            "<style>body{font:14px system-ui,sans-serif;margin:1.5em}"
+            "table{border-collapse:collapse}td,th{padding:2px 8px;text-align:right}"
+            "td.l,th.l{text-align:left}tr.crit{background:#f8d0d0}tr.warn{background:#fbeec0}"
+            "td{white-space:nowrap}tr.unknown{background:#e4e4e4}"
+            ".caution{border:1px solid #c60;padding:.5em;max-width:60em}</style></head><body>",
+            f"<h1>lightwarden: {site}</h1>",
+            f"<p>{len(rows)} optic lanes on {len(devices)} devices, worst first; "
+            f"page built {escape(time.strftime('%Y-%m-%d %H:%M:%S'))}.</p>",
+        ]
+        down = [d for d in devices if not d["up"]]
+        if down:
+            out.append("<h2>Devices not answering</h2><ul>")
+            out += [f"<li>{escape(str(d['device']))}: {escape(str(d['error']))}</li>"
+                    for d in down]
+            out.append("</ul>")
+        alerts = list(self.monitor.open_alerts())
+        if alerts:
+            out.append("<h2>Open alerts</h2><table><tr><th class=l>alert</th><th class=l>"
+                       "where</th><th class=l>summary</th><th class=l>advice</th></tr>")
+            for a in sorted(alerts, key=lambda a: (a.severity != "critical", a.key)):
+                out.append(
+                    f"<tr class={'crit' if a.severity == 'critical' else 'warn'}>"
+                    f"<td class=l>{escape(a.alertname)}</td>"
+                    f"<td class=l>{escape(a.device)} {escape(a.port)} lane {a.lane}</td>"
+                    f"<td class=l>{escape(a.summary)}</td><td class=l>{escape(a.advice)}</td>"
+                    "</tr>"
+                )
+            out.append("</table>")
+        links = self.monitor.link_issues()
+        if links:
+            out.append("<h2>Links whose ends do not match</h2><ul>")
+            out += [f"<li class={'crit' if i.severity == 'critical' else 'warn'}>"
+                    f"{escape(i.text)}</li>" for i in links]
+            out.append("</ul>")
+        out.append(
+            "<h2>Optics</h2><table><tr><th class=l>device</th><th class=l>port</th>"
+            "<th>lane</th><th class=l>PMD</th><th>Rx dBm</th><th>Tx dBm</th><th>bias mA</th>"
+            "<th>temp °C</th><th>overload</th><th>sensitivity</th><th>to overload dB</th>"
+            "<th>to sensitivity dB</th><th class=l>window</th><th class=l>condition</th>"
+            "<th class=l>notes</th></tr>"
+        )
+        for r in rows:
+            out.append(
+                f"<tr class={_CLASS[r.severity]}><td class=l>{escape(r.device)}</td>"
+                f"<td class=l>{escape(r.port)}</td><td>{r.lane}</td>"
+                f"<td class=l>{escape(r.pmd or '?')}</td>"
+                + "".join(f"<td>{_n(v)}</td>" for v in (
+                    r.rx_power_dbm, r.tx_power_dbm, r.bias_ma, r.temperature_c,
+                    r.rx_overload_dbm, r.rx_sensitivity_dbm, r.margin_to_overload_db,
+                    r.margin_to_sensitivity_db))
+                + f"<td class=l>{escape(r.window_source)}</td>"
+                f"<td class=l>{escape(r.condition)}</td>"
+                f"<td class=l>{escape('; '.join(r.value_notes))}</td></tr>"
+            )
+        out.append("</table>")
+        out.append(f"<p class=caution>{escape(LASER_CAUTION)}</p>")
+        out.append("</body></html>")
+        return 200, "text/html; charset=utf-8", "".join(out).encode()
+
+
+def _n(v: float | None) -> str:
+    return "–" if v is None else f"{v:.2f}"

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from enum import IntEnum
+from enum import IntEnum, StrEnum
 
 import numpy as np
 
@@ -35,6 +35,14 @@ class Quantity(IntEnum):
         """Short name used in metrics labels, JSON and pages."""
         return _LABELS[self]
 
+    @classmethod
+    def from_label(cls, label: object) -> Quantity:
+        """The quantity called ``label`` (as written by ``label``); ValueError otherwise."""
+        found = _BY_LABEL.get(label) if isinstance(label, str) else None
+        if found is None:
+            raise ValueError(f"quantity {label!r} is not one of {sorted(_BY_LABEL)}")
+        return found
+
 
 _UNITS = {
     Quantity.RX_POWER: "dBm",
@@ -50,6 +58,7 @@ _LABELS = {
     Quantity.TEMPERATURE: "temperature",
     Quantity.SUPPLY: "supply",
 }
+_BY_LABEL = {label: q for q, label in _LABELS.items()}
 
 #: Quantities measured per lane; the others are per module (stored with lane 0).
 LANE_QUANTITIES = (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS)
@@ -201,6 +210,26 @@ class BatchBuilder:
         )
 
 
+class PollErrorKind(StrEnum):
+    """Why a poll failed, in one word; the words are stable (metrics labels, JSON, logs).
+
+    A StrEnum, so a kind is its word wherever it is written out.
+    """
+
+    NONE = ""  # the poll worked (falsy, like the empty word it stands for)
+    TIMEOUT = "timeout"  # no answer in time
+    AUTH = "auth"  # credentials or security parameters refused
+    HOSTKEY = "hostkey"  # SSH host key unknown or changed
+    REFUSED = "refused"  # the device refused the connection
+    DROPPED = "dropped"  # a session closed under us
+    TRANSPORT = "transport"  # could not send at all (socket, name resolution)
+    PROTOCOL = "protocol"  # an answer that breaks the protocol, or cannot be decoded
+    PARSE = "parse"  # CLI output that does not match the platform's template
+    UNSUPPORTED = "unsupported"  # the platform cannot do what was asked (e.g. memory maps)
+    CONFIG = "config"  # unusable local settings (missing key or known_hosts file)
+    INTERNAL = "internal"  # a bug of ours, caught so the poll loop goes on
+
+
 @dataclass(slots=True)
 class PollOutcome:
     """How one poll of one device went: the batch when it worked, the error when not."""
@@ -210,7 +239,7 @@ class PollOutcome:
     duration_s: float
     batch: ReadingBatch | None = None
     error: str = ""  # short, secret-free, names what failed ("timed out after 3 tries")
-    error_kind: str = ""  # "timeout", "auth", "hostkey", "dropped", "protocol", "parse", ...
+    error_kind: PollErrorKind = PollErrorKind.NONE
 
     @property
     def ok(self) -> bool:

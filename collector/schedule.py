@@ -25,7 +25,7 @@ from datetime import UTC, datetime, timedelta
 from apscheduler.schedulers.asyncio import AsyncIOScheduler
 from apscheduler.triggers.interval import IntervalTrigger
 
-from lightwarden.collector.readings import PollOutcome
+from lightwarden.collector.readings import PollErrorKind, PollOutcome
 from lightwarden.collector.source import PollSource
 
 log = logging.getLogger(__name__)
@@ -204,7 +204,7 @@ class PollScheduler:
                 started_at=now,
                 duration_s=0.0,
                 error=f"{name}: poll failed unexpectedly ({type(exc).__name__})",
-                error_kind="internal",
+                error_kind=PollErrorKind.INTERNAL,
             )
 
     async def _deliver(self, outcome: PollOutcome) -> None:

@@ -22,6 +22,7 @@ from pysnmp.hlapi.v3arch.asyncio import (
 from pysnmp.proto import errind
 from pysnmp.proto.rfc1905 import EndOfMibView
 
+from lightwarden.collector.readings import PollErrorKind
 from lightwarden.collector.snmp.credentials import SnmpCredentials
 
 Oid = tuple[int, ...]
@@ -48,9 +49,9 @@ MAX_WALK_REQUESTS = 10_000
 
 
 class SnmpError(Exception):
-    """A failed SNMP exchange. ``kind`` is "timeout", "auth", "protocol" or "transport"."""
+    """A failed SNMP exchange; ``kind`` is TIMEOUT, AUTH, PROTOCOL or TRANSPORT."""
 
-    def __init__(self, kind: str, message: str) -> None:
+    def __init__(self, kind: PollErrorKind, message: str) -> None:
         super().__init__(message)
         self.kind = kind
         self.message = message
@@ -141,7 +142,7 @@ class SnmpSession:
                 )
             except Exception as exc:  # resolution or socket errors, named below
                 raise SnmpError(
-                    "transport",
+                    PollErrorKind.TRANSPORT,
                     f"cannot reach {self.where} for {what}: {type(exc).__name__}",
                 ) from None
         return self._target
@@ -150,19 +151,20 @@ class SnmpSession:
         if isinstance(indication, errind.RequestTimedOut):
             hint = " (a wrong community is dropped silently and looks the same)"
             return SnmpError(
-                "timeout",
+                PollErrorKind.TIMEOUT,
                 f"no answer from {self.where} while reading {what}: "
                 f"{self.retries + 1} tries of {self.timeout:g} s"
                 + (hint if self.credentials.version == "2c" else ""),
             )
         if isinstance(indication, _AUTH_ERRORS):
             return SnmpError(
-                "auth",
+                PollErrorKind.AUTH,
                 f"SNMPv3 security failure from {self.where} while reading {what} "
                 f"as {self.credentials.describe()}: {indication}",
             )
         return SnmpError(
-            "protocol", f"SNMP error from {self.where} while reading {what}: {indication}"
+            PollErrorKind.PROTOCOL,
+            f"SNMP error from {self.where} while reading {what}: {indication}",
         )
 
     async def get(
@@ -190,7 +192,7 @@ class SnmpSession:
             raise self._fail(indication, what)
         if status:
             raise SnmpError(
-                "protocol",
+                PollErrorKind.PROTOCOL,
                 f"{self.where} answered {status.prettyPrint()}{where} "  # type: ignore[attr-defined]
                 f"while reading {what}",
             )
@@ -239,10 +241,10 @@ class SnmpSession:
                     continue
                 if oid <= last[col]:
                     raise SnmpError(
-                        "protocol",
+                        PollErrorKind.PROTOCOL,
                         f"{self.where} returned OIDs out of order while reading {what}",
                     )
                 last[col] = oid
                 results[col][oid[len(prefix):]] = plain(value, octets)
             active = [col for col in active if col not in finished]
-        raise SnmpError("protocol", f"{self.where}: walk of {what} did not end")
+        raise SnmpError(PollErrorKind.PROTOCOL, f"{self.where}: walk of {what} did not end")

@@ -9,6 +9,7 @@ import time
 from lightwarden.collector.map_facts import MapFacts, apply_to_identity, facts_from_map, join_note
 from lightwarden.collector.readings import (
     BatchBuilder,
+    PollErrorKind,
     PollOutcome,
     Quantity,
     ReadingBatch,
@@ -149,7 +150,7 @@ class SnmpSource:
                 duration_s=time.monotonic() - started,
                 error=f"{self._name}: could not decode the answer from {self._session.where} "
                 f"({type(exc).__name__})",
-                error_kind="protocol",
+                error_kind=PollErrorKind.PROTOCOL,
             )
         return PollOutcome(
             device=self._name, started_at=now, duration_s=time.monotonic() - started, batch=batch

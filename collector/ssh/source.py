@@ -38,7 +38,7 @@ from netmiko.no_enable import NoEnable
 
 from lightwarden.collector.eeprom.hexdump import HexDumpError, parse_hexdump
 from lightwarden.collector.map_facts import MapFacts, apply_map_facts, facts_from_map
-from lightwarden.collector.readings import PollOutcome, ReadingBatch
+from lightwarden.collector.readings import PollErrorKind, PollOutcome, ReadingBatch
 from lightwarden.collector.ssh.cli_parse import parse_outputs
 from lightwarden.collector.ssh.platforms.platform import Platform
 
@@ -87,7 +87,7 @@ class MemoryMapOutcome:
     port: str
     data: bytes | None = None
     error: str = ""
-    error_kind: str = ""
+    error_kind: PollErrorKind = PollErrorKind.NONE
 
 
 class SessionDropped(ConnectionError):
@@ -154,7 +154,7 @@ class PlatformDriver(NoEnable, NoConfig, BaseConnection):
 class PollFailure(Exception):
     """A classified device-level failure; ``str()`` is the message for the outcome."""
 
-    def __init__(self, kind: str, message: str) -> None:
+    def __init__(self, kind: PollErrorKind, message: str) -> None:
         super().__init__(message)
         self.kind = kind
 
@@ -260,7 +260,7 @@ class SshSource:
                 return PollOutcome(
                     self.name, now, time.monotonic() - started,
                     error=f"{self.name}: unexpected {type(exc).__name__} while polling over SSH",
-                    error_kind="internal",
+                    error_kind=PollErrorKind.INTERNAL,
                 )
         result = parse_outputs(self.name, self.platform, outputs, now)
         if self.read_maps and result.batch is not None:
@@ -269,7 +269,7 @@ class SshSource:
         if result.problems:
             more = f" (and {len(result.problems) - 1} more)" if len(result.problems) > 1 else ""
             outcome.error = f"{self.name}: output not fully understood: {result.problems[0]}{more}"
-            outcome.error_kind = "parse"
+            outcome.error_kind = PollErrorKind.PARSE
         return outcome
 
     async def _apply_maps(self, batch: ReadingBatch) -> None:
@@ -306,7 +306,8 @@ class SshSource:
         """Fetch one port's module memory map with the platform's eeprom command."""
         if self.platform.eeprom is None:
             return MemoryMapOutcome(port, error=f"{self.name}: platform {self.platform.name!r} "
-                                    "has no memory-map command", error_kind="unsupported")
+                                    "has no memory-map command",
+                                    error_kind=PollErrorKind.UNSUPPORTED)
         command = self.platform.eeprom.command.format(port=port)
         async with self._semaphore():
             try:
@@ -319,7 +320,7 @@ class SshSource:
             first = text.strip().splitlines()[0] if text.strip() else "empty output"
             reason = first if first.startswith("%") else str(exc)
             return MemoryMapOutcome(port, error=f"{self.name}: {command!r}: {reason}",
-                                    error_kind="parse")
+                                    error_kind=PollErrorKind.PARSE)
 
     async def aclose(self) -> None:
         await self.workers.run(self.close)
@@ -347,7 +348,7 @@ class SshSource:
             outputs = self._run_commands(conn, commands)
         except PollFailure as exc:
             conn.disconnect()
-            if not (reused and exc.kind == "dropped"):
+            if not (reused and exc.kind is PollErrorKind.DROPPED):
                 raise
             # A kept session died between polls without us noticing: reconnect once.
             conn = self._connect()
@@ -383,7 +384,8 @@ class SshSource:
                 kwargs["system_host_keys"] = True
             elif not self.known_hosts.is_file():
                 raise PollFailure(
-                    "config", f"{self.name}: known_hosts file {self.known_hosts} not found"
+                    PollErrorKind.CONFIG,
+                    f"{self.name}: known_hosts file {self.known_hosts} not found",
                 )
             else:
                 kwargs.update(system_host_keys=False, alt_host_keys=True,
@@ -400,7 +402,7 @@ class SshSource:
                     else "cannot be read"
                 )
                 raise PollFailure(
-                    "config", f"{self.name}: SSH key file {creds.key_file} {reason}"
+                    PollErrorKind.CONFIG, f"{self.name}: SSH key file {creds.key_file} {reason}"
                 ) from None
         try:
             conn = PlatformDriver(
@@ -442,7 +444,7 @@ class SshSource:
         if any(isinstance(e, NetmikoAuthenticationException | paramiko.AuthenticationException)
                for e in chain):
             return PollFailure(
-                "auth",
+                PollErrorKind.AUTH,
                 f"{name}: authentication failed for user {self._credentials.username!r} "
                 f"at {where}",
             )
@@ -450,13 +452,13 @@ class SshSource:
             "does not match" in str(exc) and "Host key" in str(exc)
         ):
             return PollFailure(
-                "hostkey",
+                PollErrorKind.HOSTKEY,
                 f"{name}: host key mismatch: {where} offered a key different from the one "
                 f"in {self.known_hosts or 'known_hosts'}; refusing to log in",
             )
         if "not found in known_hosts" in str(exc):
             return PollFailure(
-                "hostkey",
+                PollErrorKind.HOSTKEY,
                 f"{name}: host key unknown: {where} is not in "
                 f"{self.known_hosts or 'known_hosts'}; add its key to trust it",
             )
@@ -467,30 +469,35 @@ class SshSource:
             isinstance(exc, ReadTimeout) and conn is not None and not conn.is_alive()
         ):
             during = "while logging in" if step in ("connect", "prepare") else f"during {step!r}"
-            return PollFailure("dropped", f"{name}: session to {where} dropped {during}")
+            return PollFailure(
+                PollErrorKind.DROPPED, f"{name}: session to {where} dropped {during}"
+            )
         if _refused(exc):
-            return PollFailure("refused", f"{name}: connection refused by {where}")
+            return PollFailure(PollErrorKind.REFUSED, f"{name}: connection refused by {where}")
         if isinstance(exc, ReadTimeout):
             if step == "prepare":
                 return PollFailure(
-                    "timeout",
+                    PollErrorKind.TIMEOUT,
                     f"{name}: no prompt matching {self.platform.prompt!r} from {where} "
                     f"within {self.read_timeout:g} s after login",
                 )
             return PollFailure(
-                "timeout",
+                PollErrorKind.TIMEOUT,
                 f"{name}: {step!r} timed out: no prompt after {self.read_timeout:g} s",
             )
         if any(isinstance(e, socket.timeout | TimeoutError) for e in chain) or isinstance(
             exc, NetmikoTimeoutException
         ):
             return PollFailure(
-                "timeout",
+                PollErrorKind.TIMEOUT,
                 f"{name}: timed out connecting to {where} (limit {self.connect_timeout:g} s)",
             )
         if any(isinstance(e, OSError | paramiko.SSHException) for e in chain):
-            return PollFailure("dropped", f"{name}: SSH session to {where} failed during {step}")
+            return PollFailure(
+                PollErrorKind.DROPPED, f"{name}: SSH session to {where} failed during {step}"
+            )
         return PollFailure(
-            "internal", f"{name}: unexpected {type(exc).__name__} during {step} at {where}"
+            PollErrorKind.INTERNAL,
+            f"{name}: unexpected {type(exc).__name__} during {step} at {where}",
         )
 

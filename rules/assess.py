@@ -27,7 +27,7 @@ import numpy as np
 
 from lightwarden.collector.readings import Quantity, ReadingBatch, ReadingStatus
 from lightwarden.rules.catalogue import Catalogue, default_catalogue
-from lightwarden.rules.findings import Assessment, Condition, WindowSource
+from lightwarden.rules.findings import SEVERITY_OF, Assessment, Condition, WindowSource
 from lightwarden.rules.hysteresis import ConditionTracker
 from lightwarden.rules.windows import (
     OpticWindows,
@@ -224,9 +224,6 @@ def assess(
     )
 
 
-_SEVERITY = np.array([Condition(c).severity for c in range(len(Condition))], dtype=np.int64)
-
-
 def _worst_per_optic(batch: ReadingBatch, condition: np.ndarray) -> np.ndarray:
     """Worst row condition per optic: highest severity, then highest code; an optic with
     no rows at all is UNKNOWN."""
@@ -234,6 +231,7 @@ def _worst_per_optic(batch: ReadingBatch, condition: np.ndarray) -> np.ndarray:
     rank = np.full(m, -1, dtype=np.int64)
     if len(batch):
         c = condition.astype(np.int64)
-        np.maximum.at(rank, batch.optic.astype(np.int64), _SEVERITY[c] * 16 + c)
+        # Severity first, code second, packed in one number (codes stay below 16).
+        np.maximum.at(rank, batch.optic.astype(np.int64), SEVERITY_OF[c].astype(np.int64) * 16 + c)
     out = np.where(rank < 0, int(Condition.UNKNOWN), rank % 16)
     return out.astype(np.int8)

@@ -3,17 +3,21 @@
 ``Assessment`` is columnar and aligned row for row with the ``ReadingBatch`` it judges,
 so an exporter walks the same arrays the collector filled. ``AlertEvent`` is one step in
 an alert's life (open, update, stale, resolve), already carrying the words an operator
-reads; delivery (Alertmanager, webhook, outbox) only moves it.
+reads; delivery (Alertmanager, webhook, outbox) only moves it. Its facts are enum
+members; they turn into words only where an event is written out (rules/event_codec.py).
+
+``Severity`` with the ``_SEVERITY`` table below is the one severity order: sorting,
+"may this alert", page colours and metric values all read it (or ``SEVERITY_OF``).
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from enum import IntEnum
+from enum import IntEnum, StrEnum
 
 import numpy as np
 
-from lightwarden.collector.readings import ReadingBatch
+from lightwarden.collector.readings import Quantity, ReadingBatch
 
 
 class Condition(IntEnum):
@@ -37,10 +41,21 @@ class Condition(IntEnum):
     def word(self) -> str:
         return self.name.lower()
 
+    @classmethod
+    def from_word(cls, word: object) -> Condition:
+        """The condition whose ``word`` is ``word``; ValueError otherwise."""
+        found = _CONDITION_BY_WORD.get(word) if isinstance(word, str) else None
+        if found is None:
+            raise ValueError(f"condition {word!r} is not one of {sorted(_CONDITION_BY_WORD)}")
+        return found
+
     @property
     def severity(self) -> Severity:
         """How bad, for "worst first" lists and alert severities."""
         return _SEVERITY[self]
+
+
+_CONDITION_BY_WORD = {c.word: c for c in Condition}
 
 
 class Severity(IntEnum):
@@ -55,6 +70,26 @@ class Severity(IntEnum):
     def word(self) -> str:
         return self.name.lower()
 
+    @property
+    def alert(self) -> AlertSeverity:
+        """The label an alert of this severity carries; ValueError below WARNING."""
+        try:
+            return AlertSeverity[self.name]
+        except KeyError:
+            raise ValueError(f"severity {self.word!r} does not raise an alert") from None
+
+
+class AlertSeverity(StrEnum):
+    """An alert's ``severity`` label: the alerting rungs of ``Severity``, as its words."""
+
+    WARNING = Severity.WARNING.word
+    CRITICAL = Severity.CRITICAL.word
+
+    @property
+    def level(self) -> Severity:
+        """Where this label sits in the one severity order (for sorting and colours)."""
+        return Severity[self.name]
+
 
 _SEVERITY = {
     Condition.HEALTHY: Severity.NONE,
@@ -68,10 +103,12 @@ _SEVERITY = {
     Condition.DARK: Severity.CRITICAL,
 }
 
-#: severity per condition code, for vectorised "which rows may alert"
-SEVERITY_OF = np.array([int(_SEVERITY[c]) for c in sorted(Condition)], dtype=np.int8)
-
-SEVERITY_WORDS = {int(s): s.word for s in Severity}
+#: severity per condition code, for vectorised sorting and "which rows may alert";
+#: read-only, so no caller can quietly reorder the one table.
+SEVERITY_OF = np.zeros(len(Condition), dtype=np.int8)
+for _c, _s in _SEVERITY.items():
+    SEVERITY_OF[_c] = _s
+SEVERITY_OF.flags.writeable = False
 
 
 class WindowSource(IntEnum):
@@ -87,6 +124,14 @@ class WindowSource(IntEnum):
     def word(self) -> str:
         return _SOURCE_WORDS[self]
 
+    @classmethod
+    def from_word(cls, word: object) -> WindowSource:
+        """The window source whose ``word`` is ``word``; ValueError otherwise."""
+        found = _SOURCE_BY_WORD.get(word) if isinstance(word, str) else None
+        if found is None:
+            raise ValueError(f"window source {word!r} is not one of {sorted(_SOURCE_BY_WORD)}")
+        return found
+
 
 _SOURCE_WORDS = {
     WindowSource.NONE: "none",
@@ -95,6 +140,7 @@ _SOURCE_WORDS = {
     WindowSource.SITE: "site",
     WindowSource.PRACTICE: "practice",
 }
+_SOURCE_BY_WORD = {w: s for s, w in _SOURCE_WORDS.items()}
 
 
 @dataclass(slots=True)
@@ -122,25 +168,34 @@ class Assessment:
     notes: dict[int, str] = field(default_factory=dict)  # row -> why (adds to batch notes)
 
 
+class AlertKind(StrEnum):
+    """Which step of an alert's life an event is; the values are the words we send."""
+
+    OPEN = "open"
+    UPDATE = "update"
+    STALE = "stale"
+    RESOLVE = "resolve"
+
+
 @dataclass(slots=True, frozen=True)
 class AlertEvent:
     """One step in the life of an alert about one (device, port, lane, quantity)."""
 
-    kind: str  # "open" | "update" | "stale" | "resolve"
+    kind: AlertKind
     key: str  # stable identity of the alert across its life and across instances
     sequence: int  # per-key counter; (key, sequence) is the idempotency key
     alertname: str  # e.g. "OpticRxNearOverload" (ours)
-    severity: str  # "warning" | "critical"
+    severity: AlertSeverity
     device: str
     port: str
     lane: int
-    quantity: str  # Quantity.label
-    condition: str  # Condition.word
+    quantity: Quantity
+    condition: Condition
     value: float | None
     unit: str
     edge_name: str  # "overload", "sensitivity", "high_alarm", ...
     edge_value: float | None
-    window_source: str  # WindowSource.word
+    window_source: WindowSource
     margin_db: float | None
     rate_per_day: float | None  # how fast the value has been moving, unit per day
     summary: str
@@ -149,3 +204,23 @@ class AlertEvent:
     starts_at: float  # epoch seconds
     ends_at: float | None = None  # set on resolve
     at: float = 0.0  # when this event was produced
+
+    def __post_init__(self) -> None:
+        # A word where a member belongs would surface later as a wrong label ("0" for
+        # a quantity) or an AttributeError in a sender; refuse it here, by name.
+        for name, kind in _EVENT_ENUMS:
+            value = getattr(self, name)
+            if not isinstance(value, kind):
+                raise TypeError(
+                    f"alert event {self.key!r}: {name} must be a member of {kind.__name__}, "
+                    f"got {value!r}"
+                )
+
+
+_EVENT_ENUMS: tuple[tuple[str, type], ...] = (
+    ("kind", AlertKind),
+    ("severity", AlertSeverity),
+    ("quantity", Quantity),
+    ("condition", Condition),
+    ("window_source", WindowSource),
+)

@@ -43,16 +43,15 @@ from dataclasses import dataclass
 import numpy as np
 
 from lightwarden.collector.readings import Quantity, ReadingBatch
-from lightwarden.rules.findings import Condition
+from lightwarden.rules.findings import SEVERITY_OF, Condition
 
 RowKey = tuple[str, str, int, int]  # (device, port, lane, Quantity code)
 
 NO_CONDITION = -1  # in state arrays: never seen / no candidate
 
-#: Ordering used to decide "worse" and "better". UNKNOWN sits apart (see module doc).
-RANK = np.zeros(max(Condition) + 1, dtype=np.int8)
-for _c in Condition:
-    RANK[_c] = {0: 0, 1: 1, 2: 2, 3: 3}[_c.severity]
+#: Ordering used to decide "worse" and "better": the one severity order, per condition
+#: code. UNKNOWN sits apart (see module doc).
+RANK = SEVERITY_OF
 
 _UNKNOWN = int(Condition.UNKNOWN)
 _DARK = int(Condition.DARK)

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import asdict, dataclass, field, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -27,18 +27,16 @@ from lightwarden.rules.advice import (
     summarize,
 )
 from lightwarden.rules.assess import MarginTargets
+from lightwarden.rules.event_codec import FIELDS, event_from_dict, event_to_dict
 from lightwarden.rules.findings import (
-    SEVERITY_WORDS,
+    SEVERITY_OF,
     AlertEvent,
+    AlertKind,
     Assessment,
     Condition,
+    Severity,
     WindowSource,
 )
-
-OPEN = "open"
-UPDATE = "update"
-STALE = "stale"
-RESOLVE = "resolve"
 
 # Phases of one key's track (see DEVELOPERS.md for the table).
 PENDING = "pending"  # condition seen, open hold running, nothing sent yet
@@ -58,9 +56,8 @@ ALERTNAMES: dict[Condition, str] = {
     Condition.ALARM: "OpticThresholdAlarm",
 }
 
-_SEVERITY = np.array([Condition(c).severity for c in range(len(Condition))], dtype=np.int8)
-#: Conditions that raise an alert: severity warning (2) or critical (3).
-_ALERTING = _SEVERITY >= 2
+#: Conditions that raise an alert: severity warning or critical.
+_ALERTING = SEVERITY_OF >= Severity.WARNING
 
 #: Default update steps: how far a value (or its margin) must move, in the quantity's
 #: unit, before an open alert is worth an update. Power in dB; the others are our
@@ -152,9 +149,6 @@ class LifecycleConfig:
         return found
 
 
-_BY_LABEL = {q.label: q for q in Quantity}
-
-
 def _escape(part: str) -> str:
     return part.replace("%", "%25").replace("|", "%7C")
 
@@ -174,7 +168,7 @@ class Track:
 
     device: str
     phase: str
-    condition: int
+    condition: Condition
     since: float  # first seen (pending since); the alert's starts_at
     clear_since: float | None = None  # first clear observation of the current clear run
     last: AlertEvent | None = None  # last event sent; None while pending
@@ -214,6 +208,8 @@ class LifecycleState:
 
     # --- persistence ------------------------------------------------------------------
 
+    # Still /1: fields are written as words (rules/event_codec.py), the same words the
+    # untyped events held, so snapshots from before the typed events read back as they are.
     FORMAT = "lightwarden.lifecycle/1"
 
     def to_dict(self) -> dict[str, Any]:
@@ -224,10 +220,10 @@ class LifecycleState:
                 key: {
                     "device": t.device,
                     "phase": t.phase,
-                    "condition": Condition(t.condition).word,
+                    "condition": t.condition.word,
                     "since": t.since,
                     "clear_since": t.clear_since,
-                    "last": None if t.last is None else asdict(t.last),
+                    "last": None if t.last is None else event_to_dict(t.last),
                 }
                 for key, t in self.tracks.items()
             },
@@ -269,7 +265,7 @@ class LifecycleState:
         return state
 
 
-_EVENT_FIELDS = frozenset(AlertEvent.__dataclass_fields__)
+_EVENT_FIELDS = frozenset(FIELDS)
 
 
 def _track_from_dict(where: str, raw: Any) -> Track:
@@ -279,9 +275,9 @@ def _track_from_dict(where: str, raw: Any) -> Track:
     if phase not in PHASES:
         raise ValueError(f"{where}.phase: unknown phase {phase!r}")
     try:
-        condition = Condition[str(raw.get("condition", "")).upper()]
-    except KeyError:
-        raise ValueError(f"{where}.condition: unknown condition {raw.get('condition')!r}") from None
+        condition = Condition.from_word(raw.get("condition"))
+    except ValueError as exc:
+        raise ValueError(f"{where}.condition: {exc}") from None
     since = raw.get("since")
     clear_since = raw.get("clear_since")
     if not isinstance(since, int | float) or isinstance(since, bool):
@@ -297,13 +293,13 @@ def _track_from_dict(where: str, raw: Any) -> Track:
             raise ValueError(
                 f"{where}.last: expected an alert event with fields {sorted(_EVENT_FIELDS)}"
             )
-        last = AlertEvent(**last_raw)
+        last = event_from_dict(last_raw, f"{where}.last")
     if phase != PENDING and last is None:
         raise ValueError(f"{where}: phase {phase!r} needs the last event sent")
     device = raw.get("device")
     if not isinstance(device, str) or not device:
         raise ValueError(f"{where}.device: expected a device name")
-    return Track(device, phase, int(condition), float(since), clear_since, last)
+    return Track(device, phase, condition, float(since), clear_since, last)
 
 
 def _opt(x: float) -> float | None:
@@ -359,7 +355,7 @@ class AlertLifecycle:
         if cond.size and (cond.min() < 0 or cond.max() >= len(Condition)):
             raise ValueError(f"lifecycle for {batch.device}: condition codes out of range")
         alerting = _ALERTING[cond]
-        severity = _SEVERITY[cond]
+        severity = SEVERITY_OF[cond]
         device = batch.device
         tracked = self.state.keys_for(device)
         rows = np.flatnonzero(alerting | _tracked_rows(batch, tracked) if tracked else alerting)
@@ -402,7 +398,7 @@ class AlertLifecycle:
             last = track.last
             event = replace(
                 last,
-                kind=STALE,
+                kind=AlertKind.STALE,
                 sequence=self.state.next_sequence(key),
                 summary=f"No answer from {device}; last known: {_last_summary(last)}",
                 at=now,
@@ -427,20 +423,20 @@ class AlertLifecycle:
         policy = self.config.policy(f.quantity, f.lane)
         track = self.state.tracks.get(key)
         if track is None:
-            track = Track(device, PENDING, int(f.condition), now)
+            track = Track(device, PENDING, f.condition, now)
             self.state.add(key, track)
         if track.phase == PENDING:
-            track.condition = int(f.condition)
+            track.condition = f.condition
             if now - track.since >= policy.open_hold_s:
-                event = self._event(OPEN, key, f, device, now, track.since, context)
+                event = self._event(AlertKind.OPEN, key, f, device, now, track.since, context)
                 track.phase, track.last = FIRING, event
                 events.append(event)
             return
         was_stale = track.phase in (STALE_PHASE, STALE_CLEARING)
-        track.phase, track.clear_since, track.condition = FIRING, None, int(f.condition)
+        track.phase, track.clear_since, track.condition = FIRING, None, f.condition
         assert track.last is not None
         if was_stale or _material(track.last, f, policy.update_step):
-            track.last = self._event(UPDATE, key, f, device, now, track.since, context)
+            track.last = self._event(AlertKind.UPDATE, key, f, device, now, track.since, context)
             events.append(track.last)
 
     def _clear(
@@ -455,22 +451,22 @@ class AlertLifecycle:
             track.phase = STALE_CLEARING if track.phase == STALE_PHASE else CLEARING
         assert track.last is not None
         last = track.last
-        policy = self.config.policy(_BY_LABEL[last.quantity], last.lane)
+        policy = self.config.policy(last.quantity, last.lane)
         hold = policy.gone_hold_s if i is None else policy.resolve_hold_s
         if now - track.clear_since < hold:
             return
         value = None if i is None else _opt(float(assessment.batch.value[i]))
         summary = resolved_summary(
-            _BY_LABEL[last.quantity],
+            last.quantity,
             last.port,
             last.lane,
             value,
-            Condition[last.condition.upper()],
+            last.condition,
             gone_from=last.device if i is None else None,
         )
         event = replace(
             last,
-            kind=RESOLVE,
+            kind=AlertKind.RESOLVE,
             sequence=self.state.next_sequence(key),
             value=value,
             margin_db=None,
@@ -485,7 +481,7 @@ class AlertLifecycle:
 
     def _event(
         self,
-        kind: str,
+        kind: AlertKind,
         key: str,
         f: _Facts,
         device: str,
@@ -508,12 +504,12 @@ class AlertLifecycle:
             key=key,
             sequence=self.state.next_sequence(key),
             alertname=ALERTNAMES[f.condition],
-            severity=SEVERITY_WORDS[f.condition.severity],
+            severity=f.condition.severity.alert,
             device=device,
             port=f.port,
             lane=f.lane,
-            quantity=f.quantity.label,
-            condition=f.condition.word,
+            quantity=f.quantity,
+            condition=f.condition,
             value=f.value,
             unit=f.quantity.unit,
             edge_name=f.edge_name,
@@ -529,7 +525,7 @@ class AlertLifecycle:
                 f.value,
                 f.edge_name,
                 f.edge_value,
-                f.source,
+                f.source.word,
             ),
             advice=words.text,
             caution=words.caution,
@@ -552,7 +548,7 @@ class _Facts:
     edge_name: str
     edge_value: float | None
     margin: float | None
-    source: str
+    source: WindowSource
 
 
 def _facts(a: Assessment, i: int) -> _Facts:
@@ -572,7 +568,7 @@ def _facts(a: Assessment, i: int) -> _Facts:
         edge_name=edge_name,
         edge_value=edge_value,
         margin=margin,
-        source=WindowSource(int(a.window_source[i])).word,
+        source=WindowSource(int(a.window_source[i])),
     )
 
 
@@ -642,7 +638,7 @@ _STEP_SLACK = 1e-9
 def _material(last: AlertEvent, new: _Facts, step: float) -> bool:
     """Is ``new`` different enough from what the receiver last heard to send it?"""
     if (last.condition, last.edge_name, last.window_source) != (
-        new.condition.word,
+        new.condition,
         new.edge_name,
         new.source,
     ):

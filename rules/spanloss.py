@@ -16,6 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from lightwarden.collector.readings import OpticIdentity, Quantity, ReadingBatch, ReadingStatus
+from lightwarden.rules.findings import AlertSeverity
 
 SINGLEMODE = frozenset({"OS1", "OS1A", "OS2"})
 MULTIMODE = frozenset({"OM1", "OM2", "OM3", "OM4", "OM5"})
@@ -249,7 +250,7 @@ _BIDI_SIDE = re.compile(r"-[UD]$", re.IGNORECASE)
 class LinkIssue:
     # "pmd-mismatch" | "wavelength-mismatch" | "bidi-same-wavelength" | "bidi-not-complementary"
     kind: str
-    severity: str  # "warning" | "critical"
+    severity: AlertSeverity
     text: str
 
 
@@ -286,7 +287,9 @@ def check_link(
         if pa != pb:
             issues.append(
                 LinkIssue(
-                    "pmd-mismatch", "warning", f"{ends}: PMD types differ ({a.pmd} vs {b.pmd})"
+                    "pmd-mismatch",
+                    AlertSeverity.WARNING,
+                    f"{ends}: PMD types differ ({a.pmd} vs {b.pmd})",
                 )
             )
     wa, wb = a.wavelength_nm, b.wavelength_nm
@@ -297,7 +300,7 @@ def check_link(
             issues.append(
                 LinkIssue(
                     "bidi-same-wavelength",
-                    "critical",
+                    AlertSeverity.CRITICAL,
                     f"{ends}: both BiDi ends transmit at {wa:.0f} nm; they need a "
                     "complementary pair (e.g. 1310/1550 nm)",
                 )
@@ -306,7 +309,7 @@ def check_link(
             issues.append(
                 LinkIssue(
                     "bidi-not-complementary",
-                    "warning",
+                    AlertSeverity.WARNING,
                     f"{ends}: BiDi ends transmit at {wa:.0f} and {wb:.0f} nm, not a known "
                     "complementary pair",
                 )
@@ -315,7 +318,7 @@ def check_link(
         issues.append(
             LinkIssue(
                 "wavelength-mismatch",
-                "critical",
+                AlertSeverity.CRITICAL,
                 f"{ends}: wavelengths differ ({wa:.0f} vs {wb:.0f} nm)",
             )
         )

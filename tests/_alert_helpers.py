@@ -6,7 +6,14 @@ import json
 import threading
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 
-from lightwarden.rules.findings import AlertEvent
+from lightwarden.collector.readings import Quantity
+from lightwarden.rules.findings import (
+    AlertEvent,
+    AlertKind,
+    AlertSeverity,
+    Condition,
+    WindowSource,
+)
 
 CAUTION = (
     "Never look into a fibre end or an open port (infrared light is invisible); inspect "
@@ -16,36 +23,37 @@ CAUTION = (
 
 
 def make_event(
-    kind: str = "open",
+    kind: AlertKind | str = AlertKind.OPEN,
     sequence: int = 1,
     key: str = "hg-core-01/sfp7/0/rx_power/OpticRxNearOverload",
     at: float = 1_700_000_000.0,
     **over,
 ) -> AlertEvent:
-    """An event about a fictional Harrowgate Lab optic."""
+    """An event about a fictional Harrowgate Lab optic (``kind`` may be given as its word)."""
+    kind = AlertKind(kind)
     fields = dict(
         kind=kind,
         key=key,
         sequence=sequence,
         alertname="OpticRxNearOverload",
-        severity="warning",
+        severity=AlertSeverity.WARNING,
         device="hg-core-01",
         port="sfp7",
         lane=0,
-        quantity="rx_power",
-        condition="near_overload",
+        quantity=Quantity.RX_POWER,
+        condition=Condition.NEAR_OVERLOAD,
         value=-0.4,
         unit="dBm",
         edge_name="overload",
         edge_value=0.5,
-        window_source="module",
+        window_source=WindowSource.MODULE,
         margin_db=0.9,
         rate_per_day=0.05,
         summary="Rx on hg-core-01 sfp7 is 0.9 dB from overload",
         advice="Fit a 5 dB attenuator (pad) at the receiver.",
         caution=CAUTION,
         starts_at=at - 60 * (sequence - 1),
-        ends_at=at if kind == "resolve" else None,
+        ends_at=at if kind is AlertKind.RESOLVE else None,
         at=at,
     )
     fields.update(over)

@@ -27,6 +27,7 @@ from _procs import (
 from lightwarden.exporters.alerts.delivery import Dispatcher
 from lightwarden.exporters.alerts.http import AlertDestination, RetryPolicy
 from lightwarden.exporters.alerts.outbox import Outbox
+from lightwarden.rules.findings import AlertSeverity, Condition
 
 pytestmark = [pytest.mark.external]
 
@@ -213,8 +214,8 @@ def test_condition_change_retires_old_label_set(tmp_path, alertmanager):
                 2,
                 at=now + 1,
                 alertname="OpticRxOverloaded",
-                severity="critical",
-                condition="overloaded",
+                severity=AlertSeverity.CRITICAL,
+                condition=Condition.OVERLOADED,
                 value=0.8,
                 margin_db=-0.3,
             )

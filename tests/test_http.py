@@ -20,20 +20,27 @@ import pytest
 from _procs import require_binary
 from exposition_data import lab_assessment, lab_batch, ok_outcome
 
+from lightwarden.collector.readings import Quantity
 from lightwarden.exporters.pages.http import HttpRequest, HttpServer, accepts_gzip
 from lightwarden.exporters.prometheus.exposition import Exposition
-from lightwarden.rules.findings import AlertEvent
+from lightwarden.rules.findings import (
+    AlertEvent,
+    AlertKind,
+    AlertSeverity,
+    Condition,
+    WindowSource,
+)
 
 TIMEOUT = 10.0  # bound on every client operation in these tests (not a speed check)
 
 
 def _alert() -> AlertEvent:
     return AlertEvent(
-        kind="open", key="k1", sequence=1, alertname="OpticRxNearOverload", severity="warning",
-        device="hg-core-1", port="sfp1", lane=1, quantity="rx_power",
-        condition="near_overload", value=-1.0, unit="dBm", edge_name="overload", edge_value=0.5,
-        window_source="pmd-table", margin_db=1.5, rate_per_day=None, summary="s", advice="a",
-        caution="", starts_at=1.0,
+        kind=AlertKind.OPEN, key="k1", sequence=1, alertname="OpticRxNearOverload",
+        severity=AlertSeverity.WARNING, device="hg-core-1", port="sfp1", lane=1,
+        quantity=Quantity.RX_POWER, condition=Condition.NEAR_OVERLOAD, value=-1.0, unit="dBm",
+        edge_name="overload", edge_value=0.5, window_source=WindowSource.PMD_TABLE, margin_db=1.5,
+        rate_per_day=None, summary="s", advice="a", caution="", starts_at=1.0,
     )  # fmt: skip
 
 

@@ -7,6 +7,7 @@ lifecycle sends for them. Expected timings follow from the configured holds.
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -21,7 +22,12 @@ from _assessments import (
 
 from lightwarden.collector.readings import BatchBuilder, OpticIdentity, Quantity
 from lightwarden.rules.advice import LASER_CAUTION, AdviceContext
-from lightwarden.rules.findings import Condition
+from lightwarden.rules.findings import (
+    AlertKind,
+    AlertSeverity,
+    Condition,
+    WindowSource,
+)
 from lightwarden.rules.lifecycle import (
     AlertLifecycle,
     LifecycleConfig,
@@ -105,12 +111,12 @@ def test_open_event_carries_edge_margin_words_and_caution():
         DEVICE,
         PORT,
         1,
-        "rx_power",
+        Quantity.RX_POWER,
         "dBm",
     )
     assert ev.edge_name == "overload" and ev.edge_value == ER_OVERLOAD
     assert ev.margin_db == pytest.approx(0.6)  # overload - Rx = -1.0 - (-1.6)
-    assert ev.window_source == "pmd-table"
+    assert ev.window_source is WindowSource.PMD_TABLE and ev.condition is NEAR
     assert "attenuator" in ev.advice and ev.caution == LASER_CAUTION
     assert "0.6 dB below overload" in ev.summary
 
@@ -142,7 +148,7 @@ def test_dark_and_threshold_conditions_name_their_alerts():
     assert warm.alertname == "OpticThresholdWarning" and warm.severity == "warning"
     assert (warm.lane, warm.quantity, warm.edge_name, warm.edge_value) == (
         0,
-        "temperature",
+        Quantity.TEMPERATURE,
         "high_warning",
         70.0,
     )
@@ -311,6 +317,10 @@ def test_snapshot_events_from_restored_state_are_specific():
         (lambda d: d.update(format="other/9"), "format"),
         (lambda d: d["tracks"][KEY].update(phase="sleeping"), r"tracks\[.*\]\.phase"),
         (lambda d: d["tracks"][KEY].update(condition="wobbly"), r"\.condition"),
+        (lambda d: d["tracks"][KEY]["last"].update(quantity="rx_powr"), r"\.last\.quantity"),
+        (lambda d: d["tracks"][KEY]["last"].update(kind="opened"), r"\.last\.kind"),
+        (lambda d: d["tracks"][KEY]["last"].update(severity=2), r"\.last\.severity"),
+        (lambda d: d["tracks"][KEY]["last"].update(window_source=None), r"\.last\.window_source"),
         (lambda d: d["tracks"][KEY].update(last=None), "needs the last event"),
         (lambda d: d["tracks"][KEY].update(since="yesterday"), r"\.since"),
         (lambda d: d["sequences"].update({KEY: -3}), r"sequences\["),
@@ -349,3 +359,32 @@ def test_restore_without_counters_never_reuses_a_sent_sequence():
     restored = AlertLifecycle.restore(data)
     (ev,) = restored.mark_stale(DEVICE, T0 + 120)
     assert ev.sequence == 3
+
+
+#: A snapshot the lifecycle wrote before its events were typed (every field a word):
+#: hgl-core-1 stopped answering at T0 + 120 with two open alerts, near overload on sfp7
+#: (since T0) and dark on sfp9 (since T0 + 60), each at sequence 2.
+UNTYPED_SNAPSHOT = Path(__file__).parent / "data" / "lifecycle" / "snapshot_v1_untyped.json"
+
+
+def test_snapshot_written_before_typed_events_still_restores():
+    raw = json.loads(UNTYPED_SNAPSHOT.read_text())
+    assert raw["format"] == "lightwarden.lifecycle/1"
+    life = AlertLifecycle.restore(raw)
+    near, dark = life.open_alerts()  # ordered by key: sfp7, then sfp9
+    assert (near.kind, near.severity, near.quantity, near.condition, near.window_source) == (
+        AlertKind.STALE, AlertSeverity.WARNING, Quantity.RX_POWER, NEAR, WindowSource.PMD_TABLE
+    )
+    assert type(near.kind) is AlertKind and type(near.window_source) is WindowSource
+    assert (dark.condition, dark.severity) == (Condition.DARK, AlertSeverity.CRITICAL)
+    assert life.state.tracks[KEY].condition is NEAR
+    # Written again it is the same document: the words did not change.
+    assert life.snapshot() == raw
+    # It carries on from there: sfp7 still near overload continues with sequence 3 ...
+    (update,) = life.observe(rx_assessment(-1.5, NEAR, T0 + 180), T0 + 180)
+    assert (update.kind, update.key, update.sequence) == (AlertKind.UPDATE, KEY, 3)
+    # ... and sfp9, absent from the replies, resolves after the gone hold (300 s default),
+    # its summary built from the restored quantity and condition.
+    (gone,) = life.observe(rx_assessment(-1.5, NEAR, T0 + 480), T0 + 480)
+    assert (gone.kind, gone.sequence, gone.ends_at) == (AlertKind.RESOLVE, 3, T0 + 180)
+    assert gone.summary == "sfp9 lane 1: no longer reported by hgl-core-1 (was dark)"

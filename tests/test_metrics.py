@@ -33,7 +33,13 @@ from lightwarden.exporters.prometheus.exposition import (
     escape_label_value,
     render_alerts,
 )
-from lightwarden.rules.findings import AlertEvent
+from lightwarden.rules.findings import (
+    AlertEvent,
+    AlertKind,
+    AlertSeverity,
+    Condition,
+    WindowSource,
+)
 
 DEV = "hg-core-1"
 
@@ -332,21 +338,21 @@ def test_remove_device_ends_its_series(exposition: Exposition) -> None:
 
 def _alert(**kw) -> AlertEvent:
     base = dict(
-        kind="open",
+        kind=AlertKind.OPEN,
         key="k1",
         sequence=1,
         alertname="OpticRxNearOverload",
-        severity="warning",
+        severity=AlertSeverity.WARNING,
         device=DEV,
         port=ODD_PORT,
         lane=1,
-        quantity="rx_power",
-        condition="near_overload",
+        quantity=Quantity.RX_POWER,
+        condition=Condition.NEAR_OVERLOAD,
         value=-1.0,
         unit="dBm",
         edge_name="overload",
         edge_value=0.5,
-        window_source="pmd-table",
+        window_source=WindowSource.PMD_TABLE,
         margin_db=1.5,
         rate_per_day=None,
         summary="s",
@@ -361,9 +367,9 @@ def _alert(**kw) -> AlertEvent:
 def test_open_alerts() -> None:
     events = [
         _alert(),
-        _alert(kind="update", sequence=2),  # same alert again: one series
-        _alert(kind="resolve", key="k2", port="sfp1", sequence=3),
-        _alert(key="k3", alertname="OpticDark", severity="critical", lane=3),
+        _alert(kind=AlertKind.UPDATE, sequence=2),  # same alert again: one series
+        _alert(kind=AlertKind.RESOLVE, key="k2", port="sfp1", sequence=3),
+        _alert(key="k3", alertname="OpticDark", severity=AlertSeverity.CRITICAL, lane=3),
     ]
     found = samples(render_alerts(events))
     rows = sorted(

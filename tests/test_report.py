@@ -19,6 +19,7 @@ from lightwarden.exporters.app.monitor import Monitor
 from lightwarden.exporters.app.wiring import build_monitor
 from lightwarden.exporters.pages.report import build_report, render_report
 from lightwarden.exporters.store.history import History
+from lightwarden.rules.findings import Condition
 
 DAY = 86400.0
 T0 = 1_780_000_000.0
@@ -127,7 +128,7 @@ def test_alerts_carry_the_rate_from_history(monitor: Monitor):
     opened = [e for e in events if e.kind == "open" and e.device == "sw-b"]
     assert opened, [e.kind for e in events]
     first = opened[0]
-    assert first.condition == "near_sensitivity"
+    assert first.condition is Condition.NEAR_SENSITIVITY
     assert first.rate_per_day == pytest.approx(-0.1, abs=1e-3)
     assert "span loss" in first.advice.lower()
 

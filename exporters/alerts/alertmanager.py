@@ -15,7 +15,7 @@ from typing import Any
 
 from lightwarden.exporters.alerts.http import AlertDestination, post
 from lightwarden.exporters.alerts.wording import alert_labels, describe, rfc3339, stale_note
-from lightwarden.rules.findings import AlertEvent
+from lightwarden.rules.findings import AlertEvent, AlertKind
 
 API_PATH = "/api/v2/alerts"
 DEFAULT_RESEND_INTERVAL_S = 60.0
@@ -45,9 +45,9 @@ def to_alertmanager(
     }
     if event.caution:
         annotations["caution"] = event.caution
-    if event.kind == "stale":
+    if event.kind is AlertKind.STALE:
         annotations["stale"] = stale_note(event)
-    if event.kind == "resolve":
+    if event.kind is AlertKind.RESOLVE:
         ends = event.ends_at if event.ends_at is not None else (event.at or now)
         # An endsAt still in Alertmanager's future does not resolve: it merges with the
         # open alert and the later endsAt of our last re-send wins, so the alert would

@@ -31,12 +31,12 @@ from lightwarden.exporters.alerts.outbox import (
     event_to_dict,
 )
 from lightwarden.exporters.alerts.webhook import WebhookSender
-from lightwarden.rules.findings import AlertEvent
+from lightwarden.rules.findings import AlertEvent, AlertKind
 
 log = logging.getLogger(__name__)
 
 OPEN_STATE_NAME = "delivery.open_alerts"
-_OPEN_KINDS = frozenset({"open", "update", "stale"})
+_OPEN_KINDS = frozenset({AlertKind.OPEN, AlertKind.UPDATE, AlertKind.STALE})
 
 
 class Sender(Protocol):
@@ -334,8 +334,8 @@ def _apply_open(opened: dict[str, AlertEvent], ev: AlertEvent) -> AlertEvent | N
         return None
     return dataclasses.replace(
         cur,
-        kind="resolve",
-        key=f"{ev.key}#retired:{cur.alertname}:{cur.severity}",
+        kind=AlertKind.RESOLVE,
+        key=f"{ev.key}#retired:{cur.alertname}:{cur.severity.value}",
         sequence=ev.sequence,
         ends_at=ev.at,
         at=ev.at,

@@ -15,9 +15,7 @@ so contention is not worth a pool.
 
 from __future__ import annotations
 
-import dataclasses
 import json
-import math
 import sqlite3
 import threading
 import time
@@ -26,9 +24,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from lightwarden.rules import event_codec
 from lightwarden.rules.findings import AlertEvent
-
-EVENT_KINDS = frozenset({"open", "update", "stale", "resolve"})
 
 # Long enough to cover any plausible replay window after a restart; short enough that the
 # tombstone table stays small.
@@ -86,31 +83,23 @@ class OutboxItem:
 
 
 def event_to_dict(event: AlertEvent) -> dict[str, Any]:
-    """Plain JSON-safe dict of an event; non-finite numbers become None (JSON has no NaN)."""
-    out: dict[str, Any] = {}
-    for f in dataclasses.fields(event):
-        v = getattr(event, f.name)
-        if isinstance(v, float) and not math.isfinite(v):
-            v = None
-        out[f.name] = v
-    return out
+    """Plain JSON-safe dict of an event (words, not members; None for non-finite numbers)."""
+    return event_codec.event_to_dict(event)
 
 
 def event_from_dict(data: dict[str, Any]) -> AlertEvent:
-    names = {f.name for f in dataclasses.fields(AlertEvent)}
-    unknown = set(data) - names
-    if unknown:
-        raise OutboxError(f"stored alert event has unknown fields {sorted(unknown)}")
-    return AlertEvent(**data)
+    """An event from a stored row; OutboxError names the field that cannot be read."""
+    try:
+        return event_codec.event_from_dict(data, "stored alert event")
+    except ValueError as exc:
+        raise OutboxError(str(exc)) from None
 
 
 def check_event(event: AlertEvent) -> None:
-    """Reject an event we could not deliver sensibly, naming what is wrong."""
-    if event.kind not in EVENT_KINDS:
-        raise ValueError(
-            f"alert event {event.key!r} seq {event.sequence}: kind {event.kind!r} "
-            f"is not one of {sorted(EVENT_KINDS)}"
-        )
+    """Reject an event we could not deliver sensibly, naming what is wrong.
+
+    Its kind needs no check: AlertEvent refuses anything but an AlertKind.
+    """
     if not event.key:
         raise ValueError(f"alert event {event.alertname!r}: empty key")
     if event.sequence < 0:

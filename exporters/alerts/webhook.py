@@ -20,7 +20,7 @@ from typing import Any
 from lightwarden.exporters.alerts.http import AlertDestination, post
 from lightwarden.exporters.alerts.outbox import event_to_dict
 from lightwarden.exporters.alerts.wording import alert_labels, describe, rfc3339, stale_note
-from lightwarden.rules.findings import AlertEvent
+from lightwarden.rules.findings import AlertEvent, AlertKind
 
 SCHEMA = "lightwarden.alert.v1"
 SIGNATURE_HEADER = "X-Lightwarden-Signature"
@@ -43,11 +43,11 @@ def to_webhook(
     doc: dict[str, Any] = {
         "schema": SCHEMA,
         "idempotency_key": idempotency_key(event),
-        "event": event.kind,
+        "event": event.kind.value,
         "sent_at": rfc3339(now),
         "labels": alert_labels(event, static_labels),
         "description": describe(event),
-        "stale_note": stale_note(event) if event.kind == "stale" else None,
+        "stale_note": stale_note(event) if event.kind is AlertKind.STALE else None,
         "times": times,
         "alert": event_to_dict(event),
     }

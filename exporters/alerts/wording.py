@@ -26,11 +26,11 @@ def alert_labels(event: AlertEvent, static: dict[str, str] | None = None) -> dic
     labels = dict(static or {})
     labels.update(
         alertname=event.alertname,
-        severity=event.severity,
+        severity=event.severity.value,
         device=event.device,
         port=event.port,
         lane=str(event.lane),
-        quantity=event.quantity,
+        quantity=event.quantity.label,
     )
     return labels
 
@@ -47,26 +47,25 @@ def _rate_unit(unit: str) -> str:
 def describe(event: AlertEvent) -> str:
     """One line with the numbers behind the alert: value, edge, window source, margin, rate."""
     parts: list[str] = []
+    quantity, source = event.quantity.label, event.window_source.word
     value = _num(event.value)
     parts.append(
-        f"{event.quantity} {value:.2f} {event.unit}"
+        f"{quantity} {value:.2f} {event.unit}"
         if value is not None
-        else f"{event.quantity} has no usable value"
+        else f"{quantity} has no usable value"
     )
     edge = _num(event.edge_value)
     if edge is not None:
-        parts.append(
-            f"{event.edge_name} edge {edge:.2f} {event.unit} (window from {event.window_source})"
-        )
+        parts.append(f"{event.edge_name} edge {edge:.2f} {event.unit} (window from {source})")
     elif event.edge_name:
-        parts.append(f"{event.edge_name} edge unknown (window from {event.window_source})")
+        parts.append(f"{event.edge_name} edge unknown (window from {source})")
     margin = _num(event.margin_db)
     if margin is not None:
         parts.append(f"margin {margin:.2f} dB")
     rate = _num(event.rate_per_day)
     if rate is not None:
         parts.append(f"moving {rate:+.2f} {_rate_unit(event.unit)}")
-    parts.append(f"condition {event.condition}")
+    parts.append(f"condition {event.condition.word}")
     return "; ".join(parts)
 
 

@@ -93,6 +93,7 @@ def _render_table(rows: list[Any], failures: list[dict[str, object]]) -> str:
 
 def run_check(monitor: Monitor, as_json: bool) -> int:
     from lightwarden.exporters.pages.rows import failed_device_row, optic_rows, worst_first
+    from lightwarden.rules.findings import Severity
 
     views = asyncio.run(_poll_and_close(monitor))
     rows, failures = [], []
@@ -111,7 +112,7 @@ def run_check(monitor: Monitor, as_json: bool) -> int:
         print(_render_table(rows, failures))
     if failures:
         return EXIT_ERROR
-    return EXIT_FINDINGS if any(r.severity >= 2 for r in rows) else EXIT_OK
+    return EXIT_FINDINGS if any(r.severity >= Severity.WARNING for r in rows) else EXIT_OK
 
 
 async def _poll_and_close(monitor: Monitor) -> list[Any]:

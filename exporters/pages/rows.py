@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
 from lightwarden.rules.advice import advise
 from lightwarden.rules.assess import MarginTargets
-from lightwarden.rules.findings import Assessment, Condition, WindowSource
+from lightwarden.rules.findings import Assessment, Condition, Severity, WindowSource
 
 
 @dataclass(slots=True)
@@ -34,7 +34,7 @@ class OpticRow:
     margin_to_sensitivity_db: float | None = None
     window_source: str = "none"
     condition: str = Condition.HEALTHY.word
-    severity: int = 0
+    severity: Severity = Severity.NONE
     notes: list[str] = field(default_factory=list)
     #: the subset of notes that explain a missing or odd value (shown in tables)
     value_notes: list[str] = field(default_factory=list)
@@ -119,7 +119,7 @@ def optic_rows(assessment: Assessment, targets: MarginTargets | None = None) -> 
         for i in module.get(o, ()):
             _fold(row, assessment, i)
     for row in rows.values():
-        if row.severity >= 2:
+        if row.severity >= Severity.WARNING:
             _advise(row, assessment, targets)
     return list(rows.values())
 

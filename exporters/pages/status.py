@@ -20,8 +20,19 @@ from lightwarden.exporters.pages.report import (
 from lightwarden.exporters.pages.rows import OpticRow, optic_rows, worst_first
 from lightwarden.exporters.pages.view import MonitorView
 from lightwarden.rules.advice import LASER_CAUTION
+from lightwarden.rules.findings import AlertSeverity, Severity
 
-_CLASS = {0: "ok", 1: "unknown", 2: "warn", 3: "crit"}
+#: Row colour per rung of the one severity order (alerts and link issues use it too).
+_CLASS = {
+    Severity.NONE: "ok",
+    Severity.INFO: "unknown",
+    Severity.WARNING: "warn",
+    Severity.CRITICAL: "crit",
+}
+
+
+def _alert_class(severity: AlertSeverity) -> str:
+    return _CLASS[severity.level]
 
 
 class StatusPage:
@@ -50,12 +61,12 @@ class StatusPage:
     def api(self, _req: HttpRequest) -> Response:
         rows, devices = self.rows()
         alerts = [
-            {"alertname": a.alertname, "severity": a.severity, "device": a.device,
-             "port": a.port, "lane": a.lane, "quantity": a.quantity, "summary": a.summary,
+            {"alertname": a.alertname, "severity": a.severity.value, "device": a.device,
+             "port": a.port, "lane": a.lane, "quantity": a.quantity.label, "summary": a.summary,
              "advice": a.advice, "caution": a.caution}
             for a in self.monitor.open_alerts()
         ]
-        links = [{"kind": i.kind, "severity": i.severity, "text": i.text}
+        links = [{"kind": i.kind, "severity": i.severity.value, "text": i.text}
                  for i in self.monitor.link_issues()]
         doc = {"devices": devices, "optics": [r.as_json() for r in rows], "alerts": alerts,
                "links": links}
@@ -105,9 +116,9 @@ class StatusPage:
         if alerts:
             out.append("<h2>Open alerts</h2><table><tr><th class=l>alert</th><th class=l>"
                        "where</th><th class=l>summary</th><th class=l>advice</th></tr>")
-            for a in sorted(alerts, key=lambda a: (a.severity != "critical", a.key)):
+            for a in sorted(alerts, key=lambda a: (-a.severity.level, a.key)):
                 out.append(
-                    f"<tr class={'crit' if a.severity == 'critical' else 'warn'}>"
+                    f"<tr class={_alert_class(a.severity)}>"
                     f"<td class=l>{escape(a.alertname)}</td>"
                     f"<td class=l>{escape(a.device)} {escape(a.port)} lane {a.lane}</td>"
                     f"<td class=l>{escape(a.summary)}</td><td class=l>{escape(a.advice)}</td>"
@@ -117,7 +128,7 @@ class StatusPage:
         links = self.monitor.link_issues()
         if links:
             out.append("<h2>Links whose ends do not match</h2><ul>")
-            out += [f"<li class={'crit' if i.severity == 'critical' else 'warn'}>"
+            out += [f"<li class={_alert_class(i.severity)}>"
                     f"{escape(i.text)}</li>" for i in links]
             out.append("</ul>")
         out.append(

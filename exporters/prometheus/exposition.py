@@ -35,7 +35,14 @@ from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 
 from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
-from lightwarden.rules.findings import Assessment, Condition, WindowSource
+from lightwarden.rules.findings import (
+    SEVERITY_OF,
+    AlertEvent,
+    AlertKind,
+    Assessment,
+    Condition,
+    WindowSource,
+)
 
 log = logging.getLogger(__name__)
 
@@ -213,7 +220,6 @@ _WITH_PMD = {int(Quantity.RX_POWER), int(Quantity.TX_POWER)}
 _QUANTITY_LABEL = {int(q): q.label for q in Quantity}
 _REASON = {int(s): s.name.lower() for s in ReadingStatus}
 _CONDITION_WORD = {int(c): c.word for c in Condition}
-_CONDITION_SEVERITY = {int(c): c.severity for c in Condition}
 _SOURCE_WORD = {int(s): s.word for s in WindowSource}
 _RX = int(Quantity.RX_POWER)
 _OK = int(ReadingStatus.OK)
@@ -436,7 +442,7 @@ def render_device(
                 continue
             out[F_CONDITION].append(f'lightwarden_optic_condition{{{base},condition="{word}"}} 1\n')
             out[F_SEVERITY].append(
-                f"lightwarden_optic_severity{{{base}}} {_CONDITION_SEVERITY[c]}\n"
+                f"lightwarden_optic_severity{{{base}}} {SEVERITY_OF[c]}\n"
             )
     if skipped:
         log.warning(
@@ -465,7 +471,7 @@ def _aligned(a: Assessment, rows: int, optics: int) -> bool:
     return all(x.shape[0] == rows for x in row_arrays) and a.optic_condition.shape[0] == optics
 
 
-AlertSource = Callable[[], Iterable[object]]
+AlertSource = Callable[[], Iterable[AlertEvent]]
 
 
 class Exposition:
@@ -646,25 +652,24 @@ def _gz(data: bytes, level: int) -> bytes:
     return gzip.compress(data, compresslevel=level, mtime=0)
 
 
-def render_alerts(events: Iterable[object]) -> bytes:
+def render_alerts(events: Iterable[AlertEvent]) -> bytes:
     """``lightwarden_alert_open`` lines for events that are not resolves.
 
-    Accepts :class:`lightwarden.rules.findings.AlertEvent` or anything with the same
-    attribute names. One series per label set, so a list holding several events of one
-    alert does not produce duplicate series.
+    One series per label set, so a list holding several events of one alert does not
+    produce duplicate series.
     """
     lines: list[str] = []
     seen: set[tuple[str, ...]] = set()
     for ev in events:
-        if getattr(ev, "kind", "open") == "resolve":
+        if ev.kind is AlertKind.RESOLVE:
             continue
         labels = (
-            str(getattr(ev, "alertname", "")),
-            str(getattr(ev, "severity", "")),
-            str(getattr(ev, "device", "")),
-            str(getattr(ev, "port", "")),
-            str(getattr(ev, "lane", "")),
-            str(getattr(ev, "quantity", "")),
+            ev.alertname,
+            ev.severity.value,
+            ev.device,
+            ev.port,
+            str(ev.lane),
+            ev.quantity.label,
         )
         if labels in seen:
             continue

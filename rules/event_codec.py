@@ -1,0 +1,93 @@
+"""AlertEvent to a plain JSON-safe dict and back: the one place its members become words.
+
+Outbox rows, the delivery state, webhook bodies and lifecycle snapshots all hold this
+dict, so they agree on it by construction. The words are the ones events have always
+carried (kind "open", severity "warning", quantity "rx_power", condition
+"near_overload", window source "pmd-table"), so rows and snapshots written before the
+event was typed read back unchanged.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections.abc import Callable, Mapping
+from enum import Enum
+from typing import Any
+
+from lightwarden.collector.readings import Quantity
+from lightwarden.rules.findings import (
+    AlertEvent,
+    AlertKind,
+    AlertSeverity,
+    Condition,
+    WindowSource,
+)
+
+FIELDS = tuple(f.name for f in dataclasses.fields(AlertEvent))
+REQUIRED = frozenset(
+    f.name
+    for f in dataclasses.fields(AlertEvent)
+    if f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
+)
+
+
+def _word(value: Enum) -> str:
+    if isinstance(value, Quantity):
+        return value.label
+    if isinstance(value, Condition | WindowSource):
+        return value.word
+    return str(value.value)
+
+
+def _member(what: str, enum: type[AlertKind] | type[AlertSeverity]) -> Callable[[object], Enum]:
+    members: dict[str, Enum] = {m.value: m for m in enum}
+
+    def parse(word: object) -> Enum:
+        found = members.get(word) if isinstance(word, str) else None
+        if found is None:
+            raise ValueError(f"{what} {word!r} is not one of {sorted(members)}")
+        return found
+
+    return parse
+
+
+_PARSE: dict[str, Callable[[object], Enum]] = {
+    "kind": _member("kind", AlertKind),
+    "severity": _member("severity", AlertSeverity),
+    "quantity": Quantity.from_label,
+    "condition": Condition.from_word,
+    "window_source": WindowSource.from_word,
+}
+
+
+def event_to_dict(event: AlertEvent) -> dict[str, Any]:
+    """Field name to value, members as their words; non-finite numbers become None."""
+    out: dict[str, Any] = {}
+    for name in FIELDS:
+        v = getattr(event, name)
+        if isinstance(v, Enum):
+            v = _word(v)
+        elif isinstance(v, float) and not math.isfinite(v):
+            v = None  # JSON has no NaN
+        out[name] = v
+    return out
+
+
+def event_from_dict(data: Mapping[str, Any], where: str = "alert event") -> AlertEvent:
+    """Rebuild an event from ``event_to_dict`` output; ValueError names the bad field."""
+    if not isinstance(data, Mapping):
+        raise ValueError(f"{where}: expected a mapping, got {type(data).__name__}")
+    unknown = set(data) - set(FIELDS)
+    if unknown:
+        raise ValueError(f"{where}: unknown fields {sorted(unknown)}")
+    missing = REQUIRED - set(data)
+    if missing:
+        raise ValueError(f"{where}: missing fields {sorted(missing)}")
+    values = dict(data)
+    for name, parse in _PARSE.items():
+        try:
+            values[name] = parse(values[name])
+        except ValueError as exc:
+            raise ValueError(f"{where}.{name}: {exc}") from None
+    return AlertEvent(**values)

@@ -25,7 +25,7 @@ from exposition_data import (
 )
 from prometheus_client.parser import text_string_to_metric_families
 
-from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
+from lightwarden.collector.readings import PollErrorKind, PollOutcome, Quantity, ReadingStatus
 from lightwarden.exporters.prometheus.exposition import (
     DEVICE_FAMILIES,
     Exposition,
@@ -267,7 +267,7 @@ def test_failed_poll_keeps_health_and_drops_readings(exposition: Exposition) -> 
         started_at=1_800_000_060.0,
         duration_s=3.0,
         error="timed out after 3 tries",
-        error_kind="timeout",
+        error_kind=PollErrorKind.TIMEOUT,
     )
     exposition.update(failed)
     exposition.update(failed)
@@ -296,7 +296,9 @@ def test_failed_poll_keeps_health_and_drops_readings(exposition: Exposition) -> 
 
 def test_counter_family_reads_back_as_counter(exposition: Exposition) -> None:
     exposition.update(
-        PollOutcome(device=DEV, started_at=0.0, duration_s=0.5, error="x", error_kind="auth")
+        PollOutcome(
+            device=DEV, started_at=0.0, duration_s=0.5, error="x", error_kind=PollErrorKind.AUTH
+        )
     )
     fams = {f.name: f for f in text_string_to_metric_families(exposition.body().decode())}
     # prometheus_client strips _total from a counter family's name
@@ -406,7 +408,7 @@ def test_partial_poll_exports_rows_and_counts_the_error() -> None:
         duration_s=2.0,
         batch=batch,
         error="dropped after 10 of 12 ports",
-        error_kind="dropped",
+        error_kind=PollErrorKind.DROPPED,
     )
     exp.update(partial)
     found = samples(exp.body())

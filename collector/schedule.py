@@ -144,6 +144,10 @@ class PollScheduler:
         self._scheduler.start()
 
     @property
+    def in_flight(self) -> int:
+        """Polls started and not yet handed on."""
+        return sum(1 for t in self._inflight if not t.done())
+
     def running(self) -> bool:
         return self._scheduler.running and not self._stopping
 

@@ -93,3 +93,10 @@ def test_the_monitor_reports_its_own_polls_and_scrapes():
     assert scrapes["lightwarden_self_scrape_seconds_count"] >= 1
     assert "process_cpu_seconds" in families  # the client library's process collector
     assert "lightwarden_device_up" in families  # the cached device text is still there
+
+
+@pytest.mark.parametrize("folder", ["snmp", "ssh"])
+def test_each_source_folder_carries_a_sample_entry_that_validates(folder: str):
+    cfg = site_config.load_config(REPO / "collector" / folder / "sample.yaml")
+    assert [d.protocol for d in cfg.devices] == [folder]
+    assert cfg.devices[0].name.startswith("qm-")  # the fictional lab's names

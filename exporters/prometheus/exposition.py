@@ -9,7 +9,7 @@ polls cost a dictionary look-up. Each chunk is also kept as its own gzip member,
 gzip scrape only joins members (RFC 1952 allows a series of members). Open alerts are
 small and change on their own clock, so they are rendered at scrape time and appended.
 
-Choices (see exporters/README-metrics.md for the catalogue):
+Choices (see exporters/prometheus/README.md for the catalogue):
 
 - A row without a value never becomes a number: no NaN, no -inf for a dark receiver. It
   becomes one ``lightwarden_reading_unavailable{...,reason}`` sample instead, so every

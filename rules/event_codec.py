@@ -32,14 +32,6 @@ REQUIRED = frozenset(
 )
 
 
-def _word(value: Enum) -> str:
-    if isinstance(value, Quantity):
-        return value.label
-    if isinstance(value, Condition | WindowSource):
-        return value.word
-    return str(value.value)
-
-
 def _member(what: str, enum: type[AlertKind] | type[AlertSeverity]) -> Callable[[object], Enum]:
     members: dict[str, Enum] = {m.value: m for m in enum}
 
@@ -66,11 +58,16 @@ def event_to_dict(event: AlertEvent) -> dict[str, Any]:
     out: dict[str, Any] = {}
     for name in FIELDS:
         v = getattr(event, name)
-        if isinstance(v, Enum):
-            v = _word(v)
-        elif isinstance(v, float) and not math.isfinite(v):
+        if isinstance(v, float) and not math.isfinite(v):
             v = None  # JSON has no NaN
         out[name] = v
+    out.update(
+        kind=event.kind.value,
+        severity=event.severity.value,
+        quantity=event.quantity.label,
+        condition=event.condition.word,
+        window_source=event.window_source.word,
+    )
     return out
 
 

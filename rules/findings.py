@@ -105,9 +105,7 @@ _SEVERITY = {
 
 #: severity per condition code, for vectorised sorting and "which rows may alert";
 #: read-only, so no caller can quietly reorder the one table.
-SEVERITY_OF = np.zeros(len(Condition), dtype=np.int8)
-for _c, _s in _SEVERITY.items():
-    SEVERITY_OF[_c] = _s
+SEVERITY_OF = np.array([_SEVERITY[Condition(k)] for k in range(len(Condition))], dtype=np.int8)
 SEVERITY_OF.flags.writeable = False
 
 

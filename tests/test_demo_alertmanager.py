@@ -5,7 +5,7 @@ test (send_resolved: true); a second stdlib receiver takes the demo's own
 `lightwarden.alert.v1` webhook events. One demo run serves every test in this module.
 
 source: /work/shared/notes/prometheus.md (Alertmanager v2 section, measured with 0.25);
-exporters/README-alerts.md (webhook schema, ordering guarantee).
+exporters/alerts/README.md (webhook schema, ordering guarantee).
 """
 
 from __future__ import annotations
@@ -224,7 +224,7 @@ def test_webhook_events_follow_the_schema_in_order(setup):
     for key, events in by_key.items():
         seqs = [e["sequence"] for e in events]
         # Fresh state dir: every key starts at 1; each event takes the next number and the
-        # webhook gets them one at a time in order (README-alerts.md "Ordered").
+        # webhook gets them one at a time in order (exporters/alerts/README.md "Ordered").
         assert seqs == list(range(1, len(seqs) + 1)), (key, seqs)
         assert events[0]["kind"] == "open", (key, events[0])
         for prev, nxt in itertools.pairwise(events):

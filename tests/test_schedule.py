@@ -33,6 +33,9 @@ class CountingSource:
         self.release: asyncio.Event | None = None
         self.finished = 0
 
+    def close(self) -> None:
+        pass
+
     async def poll(self, now: float) -> PollOutcome:
         self.calls.append(now)
         self.running += 1

@@ -58,7 +58,7 @@ def test_signature_matches_documented_scheme(tmp_path, receiver):
     assert d.stop(2.0)
     headers, body = receiver.requests[0]
     ts = headers["X-Lightwarden-Timestamp"]
-    # Documented in exporters/README-alerts.md: HMAC-SHA256(secret, "<timestamp>.<raw body>")
+    # Documented in exporters/alerts/README.md: HMAC-SHA256(secret, "<timestamp>.<raw body>")
     expected = hmac.new(SECRET.encode(), ts.encode() + b"." + body, hashlib.sha256).hexdigest()
     assert headers["X-Lightwarden-Signature"] == "sha256=" + expected
     assert verify(SECRET, ts, body, headers["X-Lightwarden-Signature"], now=int(ts))
@@ -174,7 +174,7 @@ def test_sign_is_hmac_sha256_over_timestamp_dot_body():
     # source: RFC 4231 test case 2 (HMAC-SHA256, key "Jefe") for the primitive we rely on.
     rfc = hmac.new(b"Jefe", b"what do ya want for nothing?", hashlib.sha256).hexdigest()
     assert rfc == "5bdcc146bf60754e6a042426089575c75a003f089d2739839dec58b964ec3843"
-    # our framing (README-alerts.md): "<timestamp>" + "." + raw body
+    # our framing (exporters/alerts/README.md): "<timestamp>" + "." + raw body
     assert (
         sign("Jefe", "1700000000", b"{}")
         == "sha256=" + hmac.new(b"Jefe", b"1700000000.{}", hashlib.sha256).hexdigest()

@@ -179,7 +179,7 @@ def _inventory(platform: Platform, text: str | None, problems: list[str]) -> dic
         return {}
     table = run_template(platform.template_path(inv.template), text, inv.unmatched)
     for lineno, line in table.unmatched:
-        problems.append(f"{inv.command!r} line {lineno} not understood: {line!r}")
+        problems.append(_unmatched_problem(platform, inv.command, lineno, line))
     blanks = {w.lower() for w in (*platform.no_light, *platform.not_supported,
                                   *platform.unavailable)}
     out: dict[str, dict] = {}
@@ -202,7 +202,7 @@ def _thresholds(
 ) -> dict[str, dict[Quantity, Thresholds]]:
     table = run_template(platform.template_path(table_def.template), text, table_def.unmatched)
     for lineno, line in table.unmatched:
-        problems.append(f"{table_def.command!r} line {lineno} not understood: {line!r}")
+        problems.append(_unmatched_problem(platform, table_def.command, lineno, line))
     cols = table_def.columns
     out: dict[str, dict[Quantity, Thresholds]] = {}
     for row in table.rows:
@@ -230,8 +230,18 @@ def _thresholds(
     return out
 
 
+def _unmatched_problem(platform: Platform, command: str, lineno: int, line: str) -> str:
+    if platform.is_error_line(line):
+        return f"{command!r} refused by the device (line {lineno}): {line!r}"
+    return f"{command!r} line {lineno} not understood: {line!r}"
+
+
+#: Cells are split on whitespace and on column bars, so "sfp7 | 1 | 0.4" names sfp7 lane 1.
+_CELL_SPLIT = re.compile(r"[\s|]+")
+
+
 def _first_token_port_lane(line: str, has_lane: bool) -> tuple[str, int] | None:
-    tokens = line.split()
+    tokens = [t for t in _CELL_SPLIT.split(line) if t]
     if not tokens:
         return None
     if not has_lane:
@@ -282,7 +292,7 @@ def parse_outputs(
                 continue
             ports.setdefault(port, _PortRows()).rows.append((int(lane_text), row, tdef))
         for lineno, line in table.unmatched:
-            problems.append(f"{tdef.command!r} line {lineno} not understood: {line!r}")
+            problems.append(_unmatched_problem(platform, tdef.command, lineno, line))
             where = _first_token_port_lane(line, cols.lane is not None)
             if where is not None and (where[0] in ports or where[0] in inventory):
                 ports.setdefault(where[0], _PortRows()).broken.append((where[1], line, tdef))

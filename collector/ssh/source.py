@@ -292,13 +292,12 @@ class SshSource:
         apply_map_facts(batch, {port: self._maps[key] for port, key in keys.items()
                                 if key in self._maps})
 
-    @staticmethod
-    def _facts(command: str, text: str) -> MapFacts:
+    def _facts(self, command: str, text: str) -> MapFacts:
         try:
             data = parse_hexdump(text)
         except HexDumpError as exc:
             first = text.strip().splitlines()[0] if text.strip() else "empty output"
-            reason = first if first.startswith("%") else str(exc)
+            reason = first if self.platform.is_error_line(first) else str(exc)
             return MapFacts(notes=(f"memory map not read: {command!r}: {reason}",))
         return facts_from_map(data)
 
@@ -318,7 +317,7 @@ class SshSource:
             return MemoryMapOutcome(port, data=parse_hexdump(text))
         except HexDumpError as exc:
             first = text.strip().splitlines()[0] if text.strip() else "empty output"
-            reason = first if first.startswith("%") else str(exc)
+            reason = first if self.platform.is_error_line(first) else str(exc)
             return MemoryMapOutcome(port, error=f"{self.name}: {command!r}: {reason}",
                                     error_kind=PollErrorKind.PARSE)
 

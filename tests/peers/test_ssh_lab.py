@@ -269,7 +269,7 @@ def test_hung_command_times_out(server, workers, qmos):
     finally:
         server.faults("qm-f-hang").hang = False
     assert out.error_kind == "timeout"
-    assert out.error == "qm-f-hang: 'optics diagnostics' timed out: no prompt after 2 s"
+    assert out.error == "qm-f-hang: 'optics levels' timed out: no prompt after 2 s"
 
 
 def test_session_dropped_mid_output_then_recovers(server, workers, qmos):
@@ -286,7 +286,7 @@ def test_session_dropped_mid_output_then_recovers(server, workers, qmos):
     assert out.error_kind == "dropped"
     port = server.port("qm-f-drop")
     assert out.error == (
-        f"qm-f-drop: session to 127.0.0.1:{port} dropped during 'optics diagnostics'"
+        f"qm-f-drop: session to 127.0.0.1:{port} dropped during 'optics levels'"
     )
     again = run(poll(src))
     assert again.ok, again.error
@@ -340,7 +340,7 @@ def test_malformed_row_gives_parse_outcome_with_partial_batch(server, workers, q
         server.faults("qm-f-malformed").malformed_row = None
     assert out.error_kind == "parse"
     assert out.error.startswith("qm-f-malformed: output not fully understood: "
-                                "'optics diagnostics' line ")
+                                "'optics levels' line ")
     assert "sfp3" in out.error
     rows = {(o.port, lane, q): (s, n) for o, lane, q, _v, s, n in out.batch.rows()}
     assert rows[("sfp3", 1, Quantity.RX_POWER)][0] is ReadingStatus.INVALID
@@ -449,7 +449,8 @@ def test_memory_map_over_ssh_decodes_to_the_same_optic(server, workers, qmos, la
     # lab.yaml story: qm-dist-a sfp6 carries a memory map with a corrupt CC_BASE
     assert any("CC_BASE" in p for p in decode(sfp6.data).problems)
     assert missing.error_kind == "parse"
-    assert missing.error == "qm-dist-a: 'optics eeprom sfp99': % optics eeprom sfp99: no such port"
+    assert missing.error == (
+        "qm-dist-a: 'optics memory sfp99': !! refused: no such port (optics memory sfp99)")
 
 
 # -- many devices ------------------------------------------------------------------------
@@ -511,15 +512,17 @@ def test_shipped_definition_copied_elsewhere_loads(tmp_path):
          "diagnostics[0].columns.rx.unit", "rx: {value: RX, unit: dB}", "'dBm'"),
         ("rx: {value: RX, unit_value: POWER_UNIT}", "rx: {value: RX, unit: mA}",
          "diagnostics[0].columns", "    columns:\n      port: PORT\n      lane", "does not fit"),
-        ("prompt: '[A-Za-z0-9._-]+:qmos> ?$'", "prompt: '[A-Za-z0-9._-]+:qmos> ?'",
-         "prompt", "prompt: '[A-Za-z0-9._-]+:qmos> ?'", "anchored"),
-        ("template: qmos_thresholds.textfsm", "template: qmos_limits.textfsm",
-         "diagnostics[1].template", "template: qmos_limits.textfsm", "not found"),
+        ("prompt: '[A-Za-z0-9._-]+/qmos: ?$'", "prompt: '[A-Za-z0-9._-]+/qmos: ?'",
+         "prompt", "prompt: '[A-Za-z0-9._-]+/qmos: ?'", "anchored"),
+        ("template: qmos_limits.textfsm", "template: qmos_edges.textfsm",
+         "diagnostics[1].template", "template: qmos_edges.textfsm", "not found"),
         ("      temperature: {value: TEMP, unit: C}",
          "      temperature: {value: TEMPERATURE, unit: C}",
          "diagnostics[0].columns.temperature.value", "value: TEMPERATURE", "no Value named"),
-        ("  command: optics eeprom {port}", "  command: optics eeprom",
-         "eeprom.command", "  command: optics eeprom", "{port}"),
+        ("  command: optics memory {port}", "  command: optics memory",
+         "eeprom.command", "  command: optics memory", "{port}"),
+        ('error_prefixes: ["!!"]', 'error_prefixes: [""]',
+         "error_prefixes[0]", 'error_prefixes: [""]', "at least 1 character"),
         ("    unmatched: UNMATCHED\n    columns:\n      port: PORT\n      quantity",
          "    columns:\n      port: PORT\n      quantity",
          "diagnostics[1].unmatched", "- table: thresholds", "required key is missing"),
@@ -537,6 +540,22 @@ def test_definition_errors_name_file_line_and_key(tmp_path, old, new, key, needl
     assert err.line == _line_of(text, needle.split("\n")[0])
     assert message in err.message
     assert str(err).startswith(f"{path}:{err.line}: {key}: ")
+
+
+def test_one_port_view_and_a_refusal_through_a_definition(server, workers, tmp_path):
+    # A definition asking for one port's levels, and for a view QMOS does not have.
+    text = (QMOS_TEXT.replace("command: optics levels\n", "command: optics levels qsfp1\n", 1)
+            .replace("command: optics limits\n", "command: optics edges\n", 1))
+    platform = load_platform(_definition(tmp_path, text))
+    out = run(poll(make_source(server, workers, platform, "qm-core-a", read_timeout=10)))
+    refusal = "!! refused: not a command; 'help' lists them (optics edges)"
+    assert out.error_kind == "parse"
+    assert out.error == ("qm-core-a: output not fully understood: 'optics edges' refused by "
+                         f"the device (line 1): {refusal!r}")
+    assert {o.port for o in out.batch.optics} == {"qsfp1"}
+    # qsfp1 is a 4-lane TK-100GLR4-10 (lab.yaml)
+    assert {lane for _o, lane, q, *_ in out.batch.rows() if q is Quantity.RX_POWER} == {
+        1, 2, 3, 4}
 
 
 def test_yaml_syntax_and_duplicate_keys(tmp_path):

@@ -52,8 +52,8 @@ class Column(_Strict):
     """One measured column: the TextFSM value holding it and the unit it is shown in.
 
     Give ``unit`` when the column always uses one unit, or ``unit_value`` naming a
-    TextFSM value that captures the unit text (for devices whose header says "Rx(mW)" on
-    some models and "Rx(dBm)" on others).
+    TextFSM value that captures the unit text (for devices whose header says "rx mW" on
+    some models and "rx dBm" on others).
     """
 
     value: str
@@ -199,6 +199,9 @@ class Platform(_Strict):
     unavailable: list[str] = Field(default_factory=list)
     #: dBm readings at or below this are treated as no light (some CLIs print a floor).
     no_light_dbm: float | None = None
+    #: How the device's error lines begin; such a line is reported as the device's
+    #: answer instead of as a line the template did not understand.
+    error_prefixes: list[Annotated[str, Field(min_length=1)]] = Field(default_factory=list)
     #: How long one command may take, seconds, unless the site config overrides it.
     read_timeout_s: float = Field(default=20.0, gt=0)
 
@@ -226,6 +229,11 @@ class Platform(_Strict):
 
     def template_path(self, name: str) -> Path:
         return self.base_dir / name
+
+    def is_error_line(self, line: str) -> bool:
+        """Whether ``line`` is one of the device's error messages (by ``error_prefixes``)."""
+        shown = line.lstrip()
+        return any(shown.startswith(prefix) for prefix in self.error_prefixes)
 
     def readings_tables(self) -> list[ReadingsTable]:
         return [t for t in self.diagnostics if isinstance(t, ReadingsTable)]

@@ -97,36 +97,39 @@ def test_unit_that_does_not_fit_the_quantity_is_invalid(qmos):
 
 # -- whole tables ------------------------------------------------------------------------
 
-DIAG_MW = """\
-Optics diagnostics (3 modules)
-Port   Lane  Rx(mW)  Tx(mW)  Bias(uA)  Temp(C)  Supply(V)
------  ----  ------  ------  --------  -------  ---------
-sfp1   1     0.5000  0.1000  35154.0   31.5     3.328
-sfp2   1     --      N/A     N/A       30.3
-sfp7   1     0.4048
-qsfp1  1     2.0000  1.0422  48163.9   39.4     3.334
-qsfp1  2     0.3685  1.1348  48124.0
+LEVELS_MW = """\
+levels of 3 modules
+port  | lane | rx mW  | tx mW  | bias uA | temp C | supply V
+============================================================
+sfp1  | 1    | 0.5000 | 0.1000 | 35154.0 | 31.5   | 3.328
+sfp2  | 1    | --     | N/A    | N/A     | 30.3   |
+sfp7  | 1    | 0.4048
+qsfp1 | 1    | 2.0000 | 1.0422 | 48163.9 | 39.4   | 3.334
+qsfp1 | 2    | 0.3685 | 1.1348 | 48124.0 |        |
 something the template has never seen
 """
 
-INVENTORY = """\
-Optics inventory
-Port   Form    PMD           Wavelength(nm)  Part           Serial      Vendor
------  ------  ------------  --------------  -------------  ----------  ---------
-sfp1   SFP+    10GBASE-LR    1310            LF-10GLR-10    QMLU000007  LUMENFOLD
-sfp2   SFP+    10GBASE-LR    1310            LF-10GLR-10    QMLU000008  LUMENFOLD
-sfp7   SFP+    10GBASE-LR    1310            LF-10GLR-10    QMLU000013  LUMENFOLD
-qsfp1  QSFP28  100GBASE-LR4  1304.6          TK-100GLR4-10  QMTA000099  TARNKEEL
+MODULES = """\
+modules fitted: 4
+port  | form   | pmd          | nm     | part          | serial     | maker
+===========================================================================
+sfp1  | SFP+   | 10GBASE-LR   | 1310   | LF-10GLR-10   | QMLU000007 | LUMENFOLD
+sfp2  | SFP+   | 10GBASE-LR   | 1310   | LF-10GLR-10   | QMLU000008 | LUMENFOLD
+sfp7  | SFP+   | 10GBASE-LR   | 1310   | LF-10GLR-10   | QMLU000013 | LUMENFOLD
+qsfp1 | QSFP28 | 100GBASE-LR4 | 1304.6 | TK-100GLR4-10 | QMTA000099 | TARNKEEL
 """
 
-THRESHOLDS_MW = """\
-Optics thresholds
-Port   Quantity     Unit  High-alarm  High-warn  Low-warn  Low-alarm
------  -----------  ----  ----------  ---------  --------  ---------
-sfp1   rx-power     mW    2.0000      1.0000     0.0363    0.0000
-sfp1   bias         uA    80000.0     70000.0    N/A       10000.0
-sfp1   supply       V     3.60        3.50       3.10      3.00
+# Edges in rising order: alarm below, warn below, warn above, alarm above.
+LIMITS_MW = """\
+limits of 1 module
+port  | quantity | unit | alarm below | warn below | warn above | alarm above
+=============================================================================
+sfp1  | rx       | mW   | 0.0000      | 0.0363     | 1.0000     | 2.0000
+sfp1  | bias     | uA   | 10000.0     | N/A        | 70000.0    | 80000.0
+sfp1  | supply   | V    | 3.00        | 3.10       | 3.50       | 3.60
 """
+
+ALL = {"optics levels": LEVELS_MW, "optics modules": MODULES, "optics limits": LIMITS_MW}
 
 
 def _rows(batch):
@@ -136,9 +139,7 @@ def _rows(batch):
 def test_table_rows_units_and_module_quantities(qmos):
     result = parse_outputs(
         "qm-test", qmos,
-        {"optics diagnostics": DIAG_MW, "optics inventory": INVENTORY,
-         "optics thresholds": THRESHOLDS_MW},
-        taken_at=1000.0,
+        ALL, taken_at=1000.0,
     )
     rows = _rows(result.batch)
     assert result.batch.device == "qm-test" and result.batch.taken_at == 1000.0
@@ -167,55 +168,55 @@ def test_table_rows_units_and_module_quantities(qmos):
 
 def test_unmatched_rows_are_reported_never_dropped(qmos):
     result = parse_outputs(
-        "qm-test", qmos, {"optics diagnostics": DIAG_MW, "optics inventory": INVENTORY,
-                          "optics thresholds": THRESHOLDS_MW}, 0.0,
+        "qm-test", qmos, ALL, 0.0,
     )
     joined = "\n".join(result.problems)
-    # the cut-short row (line 6) and the stray line (line 10), each with its line number
-    assert "line 6 not understood: 'sfp7   1     0.4048'" in joined
+    # the cut-short row (line 6) and the stray line (line 9), each with its line number
+    assert "line 6 not understood: 'sfp7  | 1    | 0.4048'" in joined
     assert "line 9 not understood: 'something the template has never seen'" in joined
     rows = _rows(result.batch)
     # the cut-short row names a known port and lane: its readings are INVALID, with the line
     for q in (RX, TX, BIAS):
         value, status, note = rows[("sfp7", 1, q)]
         assert status is ReadingStatus.INVALID and math.isnan(value)
-        assert "sfp7   1     0.4048" in note
+        assert "sfp7  | 1    | 0.4048" in note
     assert rows[("sfp7", 0, Quantity.TEMPERATURE)][1] is ReadingStatus.INVALID
     # the rest of the table is intact
     assert rows[("sfp1", 1, RX)][1] is ReadingStatus.OK
 
 
 def test_clean_output_has_no_problems(qmos):
-    clean = "\n".join(line for line in DIAG_MW.splitlines()
+    clean = "\n".join(line for line in LEVELS_MW.splitlines()
                       if not line.startswith(("sfp7", "something")))
-    result = parse_outputs("qm-test", qmos, {"optics diagnostics": clean,
-                                             "optics inventory": INVENTORY,
-                                             "optics thresholds": THRESHOLDS_MW}, 0.0)
+    result = parse_outputs("qm-test", qmos, ALL | {"optics levels": clean}, 0.0)
     assert result.problems == []
 
 
 def test_missing_command_output_is_a_problem(qmos):
-    result = parse_outputs("qm-test", qmos, {"optics diagnostics": DIAG_MW}, 0.0)
-    assert any("no output for 'optics inventory'" in p for p in result.problems)
-    assert any("no output for 'optics thresholds'" in p for p in result.problems)
+    result = parse_outputs("qm-test", qmos, {"optics levels": LEVELS_MW}, 0.0)
+    assert any("no output for 'optics modules'" in p for p in result.problems)
+    assert any("no output for 'optics limits'" in p for p in result.problems)
     assert len(result.batch) > 0
 
 
 def test_an_error_message_instead_of_a_table_is_reported(qmos):
-    result = parse_outputs(
-        "qm-test", qmos,
-        {"optics diagnostics": "% unknown command: 'optics diagnostics'",
-         "optics inventory": INVENTORY, "optics thresholds": THRESHOLDS_MW}, 0.0,
-    )
+    refused = "!! refused: not a command; 'help' lists them (optics levels)"
+    result = parse_outputs("qm-test", qmos, ALL | {"optics levels": refused}, 0.0)
     assert len(result.batch) == 0
-    assert any("% unknown command" in p for p in result.problems)
+    # the line starts with one of the definition's error_prefixes: said as a refusal
+    assert result.problems == [f"'optics levels' refused by the device (line 1): {refused!r}"]
+
+
+def test_a_line_without_an_error_prefix_is_only_not_understood(qmos):
+    odd = "% not a QMOS error line"
+    result = parse_outputs("qm-test", qmos, ALL | {"optics levels": odd}, 0.0)
+    assert result.problems == [f"'optics levels' line 1 not understood: {odd!r}"]
 
 
 def test_thresholds_convert_units_and_skip_undeclared_edges(qmos):
     result = parse_outputs(
         "qm-test", qmos,
-        {"optics diagnostics": DIAG_MW, "optics inventory": INVENTORY,
-         "optics thresholds": THRESHOLDS_MW}, 0.0,
+        ALL, 0.0,
     )
     optic = next(o for o in result.batch.optics if o.port == "sfp1")
     rx = optic.thresholds[RX]
@@ -232,33 +233,31 @@ def test_thresholds_convert_units_and_skip_undeclared_edges(qmos):
 
 
 def test_unknown_threshold_word_is_reported(qmos):
-    text = THRESHOLDS_MW + "sfp1   wobble       mW    1.0  1.0  1.0  1.0\n"
-    result = parse_outputs("qm-test", qmos, {"optics diagnostics": DIAG_MW,
-                                             "optics inventory": INVENTORY,
-                                             "optics thresholds": text}, 0.0)
+    text = LIMITS_MW + "sfp1  | wobble   | mW   | 1.0 | 1.0 | 1.0 | 1.0\n"
+    result = parse_outputs("qm-test", qmos, ALL | {"optics limits": text}, 0.0)
     assert any("unknown quantity 'wobble'" in p for p in result.problems)
 
 
 def test_templates_compile_once(qmos):
-    path = qmos.template_path("qmos_diagnostics.textfsm")
+    path = qmos.template_path("qmos_levels.textfsm")
     assert compiled_template(path) is compiled_template(path)
     # and the compiled template is reusable: two parses give the same rows
-    a = run_template(path, DIAG_MW, "UNMATCHED")
-    b = run_template(path, DIAG_MW, "UNMATCHED")
+    a = run_template(path, LEVELS_MW, "UNMATCHED")
+    b = run_template(path, LEVELS_MW, "UNMATCHED")
     assert a.rows == b.rows and len(a.unmatched) == 2
     assert [r["PORT"] for r in a.rows if r["PORT"]] == ["sfp1", "sfp2", "qsfp1", "qsfp1"]
 
 
 def test_transcript_splits_by_prompt(qmos):
     transcript = (
-        "qm-core-a:qmos> optics inventory\n" + INVENTORY
-        + "qm-core-a:qmos> optics diagnostics\n" + DIAG_MW
-        + "qm-core-a:qmos> \n"
+        "qm-core-a/qmos: optics modules\n" + MODULES
+        + "qm-core-a/qmos: optics levels\n" + LEVELS_MW
+        + "qm-core-a/qmos: \n"
     )
     outputs = split_transcript(qmos, transcript)
-    assert set(outputs) == {"optics inventory", "optics diagnostics"}
-    assert outputs["optics inventory"].splitlines()[0] == "Optics inventory"
-    assert "qmos>" not in outputs["optics diagnostics"]
+    assert set(outputs) == {"optics modules", "optics levels"}
+    assert outputs["optics modules"].splitlines()[0] == "modules fitted: 4"
+    assert "/qmos:" not in outputs["optics levels"]
 
 
 # -- the platform guide's examples and the check command ----------------------------------
@@ -272,25 +271,25 @@ def test_guide_minimal_definition_works(tmp_path):
     template = next(body for head, body in yaml_blocks if body.startswith("Value PORT (\\S+)\n"
                                                                           "Value RX"))
     (tmp_path / "brackenfell.yaml").write_text(minimal)
-    (tmp_path / "brackenfell_power.textfsm").write_text(template)
+    (tmp_path / "brackenfell_light.textfsm").write_text(template)
     platform = load_platform(tmp_path / "brackenfell.yaml")
     session = (
-        "edge-1# transceivers power\n"
-        "Interface  Rx      Tx\n"
-        "xe1        -7.25   -2.10\n"
-        "xe2        -inf    -2.30\n"
-        "edge-1#\n"
+        "bf-edge-1 :: light readout\n"
+        "link   rx      tx\n"
+        "bay1   -7.25   -2.10\n"
+        "bay2   -inf    -2.30\n"
+        "bf-edge-1 ::\n"
     )
     report = check_transcript(platform, session)
     assert report.clean, report.render()
     rows = _rows(report.result.batch)
-    assert rows[("xe1", 1, RX)][0] == pytest.approx(-7.25)
-    assert rows[("xe2", 1, RX)][1] is ReadingStatus.NO_LIGHT
+    assert rows[("bay1", 1, RX)][0] == pytest.approx(-7.25)
+    assert rows[("bay2", 1, RX)][1] is ReadingStatus.NO_LIGHT
 
 
 def test_guide_worked_example_matches_its_stated_result(qmos):
     sample = next(b.split("\n", 1)[1] for b in GUIDE.split("```")[1::2]
-                  if "qm-core-a:qmos> optics diagnostics" in b)
+                  if "qm-core-a/qmos: optics levels" in b)
     outputs = split_transcript(qmos, sample)
     result = parse_outputs("qm-core-a", qmos, outputs, 0.0)
     rows = _rows(result.batch)
@@ -305,16 +304,16 @@ def test_guide_worked_example_matches_its_stated_result(qmos):
 
 def test_check_command_exit_codes(tmp_path, capsys):
     session = tmp_path / "session.txt"
-    session.write_text("qm-x:qmos> optics diagnostics\n" + DIAG_MW + "qm-x:qmos> \n")
+    session.write_text("qm-x/qmos: optics levels\n" + LEVELS_MW + "qm-x/qmos: \n")
     assert check_main(["qmos", str(session)]) == 1  # the stray lines and missing commands
     out = capsys.readouterr().out
     assert "line 6 not understood" in out and "sfp1" in out
     clean = tmp_path / "clean.txt"
-    body = "\n".join(line for line in DIAG_MW.splitlines()
+    body = "\n".join(line for line in LEVELS_MW.splitlines()
                      if not line.startswith(("sfp7", "something")))
     clean.write_text(
-        "qm-x:qmos> optics inventory\n" + INVENTORY + "qm-x:qmos> optics diagnostics\n" + body
-        + "\nqm-x:qmos> optics thresholds\n" + THRESHOLDS_MW + "qm-x:qmos> \n"
+        "qm-x/qmos: optics modules\n" + MODULES + "qm-x/qmos: optics levels\n" + body
+        + "\nqm-x/qmos: optics limits\n" + LIMITS_MW + "qm-x/qmos: \n"
     )
     assert check_main(["qmos", str(clean)]) == 0, capsys.readouterr().out
     assert check_main(["no-such-platform", str(clean)]) == 2

@@ -26,7 +26,7 @@ def test_example_config_validates_and_maps_holds_per_quantity_and_lane():
     assert lc.policy(Quantity.TEMPERATURE, 0).open_hold_s == 600
     assert lc.policy(Quantity.RX_POWER, 1).open_hold_s == 0
     overrides = build_overrides(cfg)
-    assert {o.part_number for o in overrides} >= {"EX-10GER-40"}
+    assert {o.part_number for o in overrides} >= {"TK-10GER-40"}
 
 
 def test_lane_hold_beats_quantity_hold():

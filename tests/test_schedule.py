@@ -32,6 +32,7 @@ class CountingSource:
         self.started = asyncio.Event()
         self.release: asyncio.Event | None = None
         self.finished = 0
+        self.closed = False
 
     async def poll(self, now: float) -> PollOutcome:
         self.calls.append(now)
@@ -50,6 +51,9 @@ class CountingSource:
             return PollOutcome(self.name, now, 0.0, error=f"{self.name}: no answer",
                                error_kind="timeout")  # fmt: skip
         return PollOutcome(self.name, now, 0.0, batch=BatchBuilder(self.name).build(now))
+
+    def close(self) -> None:
+        self.closed = True
 
 
 async def _until(predicate, what: str) -> None:

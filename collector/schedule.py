@@ -145,6 +145,10 @@ class PollScheduler:
             self._add_job(name)
         self._scheduler.start()
 
+    def in_flight(self) -> int:
+        """Polls started and not yet handed on."""
+        return sum(1 for t in self._inflight if not t.done())
+
     @property
     def running(self) -> bool:
         return self._scheduler.running and not self._stopping

@@ -336,8 +336,9 @@ class AlertLifecycle:
         The lifecycle is the one owner of open alerts: pages, metrics and the check
         command all read them here.
         """
-        tracks = self.state.tracks
-        return [t.last for _k, t in sorted(tracks.items()) if t.last is not None]
+        # A copy first: HTTP threads read this while the poller changes the state.
+        tracks = list(self.state.tracks.items())
+        return [t.last for _k, t in sorted(tracks) if t.last is not None]
 
     # --- input ---------------------------------------------------------------------
 

@@ -1,4 +1,4 @@
-"""Generic JSON webhook delivery, schema ``lightwarden.alert.v1`` (see README-alerts.md).
+"""Generic JSON webhook delivery, schema ``lightwarden.alert.v1`` (see exporters/alerts/README.md).
 
 One event per request, strictly in order per destination: event n+1 is not sent before
 the receiver accepted event n. Each request carries ``Idempotency-Key: <key>:<sequence>``

@@ -21,6 +21,7 @@ from lightwarden.collector.readings import OpticIdentity, PollOutcome, Quantity
 from lightwarden.collector.source import PollSource
 from lightwarden.exporters.pages.view import DeviceView
 from lightwarden.exporters.prometheus.exposition import Exposition
+from lightwarden.exporters.prometheus.self_metrics import SelfMetrics
 from lightwarden.exporters.store.gather import history_advice_context
 from lightwarden.exporters.store.history import History, HistoryError
 from lightwarden.rules.advice import AdviceContext
@@ -66,8 +67,10 @@ class Monitor:
     """Everything between the sources and the outside world, minus the HTTP socket."""
 
     def __init__(self, parts: MonitorParts, *, clock: Callable[[], float] = time.time,
-                 alerts: bool = True, alert_sink: AlertSink | None = None) -> None:
+                 alerts: bool = True, alert_sink: AlertSink | None = None,
+                 self_metrics: SelfMetrics | None = None) -> None:
         self.parts = parts
+        self.self_metrics = self_metrics
         self.clock = clock
         self.lifecycle = parts.lifecycle
         self.exposition = parts.exposition
@@ -145,6 +148,8 @@ class Monitor:
     def handle(self, outcome: PollOutcome) -> DeviceView:
         """Judge one poll, update metrics and alerts. Never raises for device trouble."""
         now = outcome.started_at + outcome.duration_s
+        if self.self_metrics is not None:
+            self.self_metrics.observe_poll(outcome.duration_s, outcome.ok)
         assessment = None
         events: list[AlertEvent] = []
         if outcome.batch is not None:

@@ -47,6 +47,8 @@ def scheduler(monitor: Monitor, cfg: SiteConfig) -> PollScheduler:
     by_name = {d.name: d for d in cfg.devices}
     for s in monitor.sources:
         sched.add_source(s, interval_s=by_name[s.name].interval_s)
+    if monitor.self_metrics is not None:
+        monitor.self_metrics.watch_polls_in_flight(sched.in_flight)
     return sched
 
 
@@ -74,6 +76,9 @@ class Service:
             raise
         if self.alerting is not None:
             monitor.alert_sink = self.alerting.submit
+            if monitor.self_metrics is not None:
+                backlog = self.alerting.dispatcher.backlog
+                monitor.self_metrics.watch_alert_queue(lambda: float(sum(backlog().values())))
 
     @property
     def url(self) -> str:

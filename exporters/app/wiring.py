@@ -15,6 +15,7 @@ from lightwarden.exporters.app.monitor import Monitor, MonitorParts
 from lightwarden.exporters.app.shard import mine
 from lightwarden.exporters.app.sources import build_sources
 from lightwarden.exporters.prometheus.exposition import Exposition
+from lightwarden.exporters.prometheus.self_metrics import SelfMetrics
 from lightwarden.exporters.store.history import History, HistoryError
 from lightwarden.rules.assess import MarginTargets
 from lightwarden.rules.catalogue import Catalogue, PmdSpec, default_catalogue
@@ -173,4 +174,6 @@ def build_monitor(
         make_history=lambda: open_history(cfg, base),
         shared=shared,
     )
-    return Monitor(parts, clock=clock, alerts=alerts)
+    own = SelfMetrics()
+    parts.exposition.set_self_metrics(own)
+    return Monitor(parts, clock=clock, alerts=alerts, self_metrics=own)

@@ -9,7 +9,7 @@ polls cost a dictionary look-up. Each chunk is also kept as its own gzip member,
 gzip scrape only joins members (RFC 1952 allows a series of members). Open alerts are
 small and change on their own clock, so they are rendered at scrape time and appended.
 
-Choices (see exporters/README-metrics.md for the catalogue):
+Choices (see exporters/prometheus/README.md for the catalogue):
 
 - A row without a value never becomes a number: no NaN, no -inf for a dark receiver. It
   becomes one ``lightwarden_reading_unavailable{...,reason}`` sample instead, so every
@@ -35,6 +35,7 @@ from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 
 from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
+from lightwarden.exporters.prometheus.self_metrics import SelfMetrics
 from lightwarden.rules.findings import Assessment, Condition, WindowSource
 
 log = logging.getLogger(__name__)
@@ -494,6 +495,7 @@ class Exposition:
         self._cached: tuple[int, bytes] | None = None
         self._cached_gz: tuple[int, bytes] | None = None
         self._targets = b""
+        self._self: SelfMetrics | None = None
         self.set_margin_targets(margin_target_overload_db, margin_target_sensitivity_db)
 
     # -- input -------------------------------------------------------------------------
@@ -509,6 +511,10 @@ class Exposition:
 
     def set_alert_source(self, alerts: AlertSource | None) -> None:
         self._alerts = alerts
+
+    def set_self_metrics(self, self_metrics: SelfMetrics | None) -> None:
+        """Append the monitor's own figures (process, polls, scrape cost) to every scrape."""
+        self._self = self_metrics
 
     def update(self, outcome: PollOutcome, assessment: Assessment | None = None) -> DeviceChunks:
         """Render one poll of one device and replace that device's cached text."""
@@ -627,6 +633,15 @@ class Exposition:
         allows a gzip file to be a series of members, and HTTP clients (Go's, used by
         Prometheus, and Python's) read them as one stream.
         """
+        own = self._self
+        if own is None:
+            return self._scrape(compressed)
+        parts = own.timed(lambda: self._scrape(compressed))
+        text = own.render()
+        parts.append(_gz(text, self._gzip_level) if compressed else text)
+        return parts
+
+    def _scrape(self, compressed: bool) -> list[bytes]:
         parts = [self._device_part(compressed)]
         alerts = self.alerts_text()
         if alerts:

@@ -1,0 +1,38 @@
+"""The `check` command's table: the same rows as the status page, for a terminal."""
+
+from __future__ import annotations
+
+from lightwarden.exporters.pages.rows import OpticRow
+
+
+def _fmt(v: float | None, width: int, prec: int = 2) -> str:
+    return f"{'-':>{width}}" if v is None else f"{v:>{width}.{prec}f}"
+
+
+def render_check_table(rows: list[OpticRow], failures: list[dict[str, object]]) -> str:
+    """One line per optic lane, then failed devices, then what to do and the caution."""
+    head = (f"{'DEVICE':<12} {'PORT':<7} {'L':>1} {'PMD':<13} {'RX dBm':>7} {'TX dBm':>7} "
+            f"{'BIAS mA':>7} {'TEMP C':>6} {'VCC V':>5} {'OVLD':>6} {'SENS':>6} "
+            f"{'M-OVLD':>6} {'M-SENS':>6} {'SOURCE':<9} CONDITION")
+    out = [head]
+    for r in rows:
+        out.append(
+            f"{r.device:<12.12} {r.port:<7.7} {r.lane:>1} {r.pmd or '?':<13.13} "
+            f"{_fmt(r.rx_power_dbm, 7)} {_fmt(r.tx_power_dbm, 7)} {_fmt(r.bias_ma, 7, 1)} "
+            f"{_fmt(r.temperature_c, 6, 1)} {_fmt(r.supply_v, 5, 2)} "
+            f"{_fmt(r.rx_overload_dbm, 6, 1)} {_fmt(r.rx_sensitivity_dbm, 6, 1)} "
+            f"{_fmt(r.margin_to_overload_db, 6, 1)} {_fmt(r.margin_to_sensitivity_db, 6, 1)} "
+            f"{r.window_source:<9} {r.condition}"
+            + (f"  ({'; '.join(r.value_notes)})" if r.value_notes else "")
+        )
+    for f in failures:
+        out.append(f"{f['device']:<12} poll failed ({f['error_kind']}): {f['error']}")
+    advised = [r for r in rows if r.advice]
+    if advised:
+        out += ["", "What to do:"]
+        out += [f"  {r.device} {r.port} lane {r.lane} ({r.condition}): {r.advice}"
+                for r in advised]
+        caution = next((r.caution for r in advised if r.caution), "")
+        if caution:
+            out += ["", caution]
+    return "\n".join(out)

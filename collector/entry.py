@@ -13,7 +13,7 @@ import os
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Annotated, Any, TypeVar
+from typing import Annotated, Any, TypeVar, cast
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
@@ -97,7 +97,8 @@ class SharedParts:
             part = make()
             self._parts[key] = part
             self._closers.append(lambda: close(part))
-        return self._parts[key]  # type: ignore[no-any-return]
+        # One key is always made by the same ``make``, so what it holds is a T.
+        return cast(T, self._parts[key])
 
     def close(self) -> None:
         for closer in reversed(self._closers):

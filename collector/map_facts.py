@@ -176,6 +176,6 @@ def apply_map_facts(batch: ReadingBatch, facts_by_port: Mapping[str, MapFacts]) 
         return
     rx = int(Quantity.RX_POWER)
     for row in range(len(batch)):
-        notes = notes_by_optic.get(int(batch.optic[row]))
-        if notes and int(batch.quantity[row]) == rx:
-            batch.notes[row] = join_note(batch.notes.get(row, ""), notes)
+        optic_notes = notes_by_optic.get(int(batch.optic[row]))
+        if optic_notes and int(batch.quantity[row]) == rx:
+            batch.notes[row] = join_note(batch.notes.get(row, ""), optic_notes)

@@ -9,6 +9,7 @@ numbers: a dark receiver is ``NO_LIGHT`` with ``value`` NaN, never -inf or -40.
 from __future__ import annotations
 
 import math
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from enum import IntEnum, StrEnum
 
@@ -136,7 +137,9 @@ class ReadingBatch:
     def __len__(self) -> int:
         return int(self.value.shape[0])
 
-    def rows(self):  # pragma: no cover - convenience for humans and tests
+    def rows(  # pragma: no cover - convenience for humans and tests
+        self,
+    ) -> Iterator[tuple[OpticIdentity, int, Quantity, float, ReadingStatus, str]]:
         for i in range(len(self)):
             yield (
                 self.optics[int(self.optic[i])],
@@ -184,7 +187,8 @@ class BatchBuilder:
         self._optic.append(optic)
         self._lane.append(lane)
         self._quantity.append(int(quantity))
-        self._value.append(float(value) if status is ReadingStatus.OK else math.nan)
+        self._value.append(
+            float(value) if status is ReadingStatus.OK and value is not None else math.nan)
         self._status.append(int(status))
 
     def add_power_mw(self, optic: int, lane: int, quantity: Quantity, milliwatts: float) -> None:

@@ -18,7 +18,7 @@ import inspect
 import logging
 import random
 import time
-from collections.abc import Awaitable, Callable, Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 
@@ -30,7 +30,9 @@ from lightwarden.collector.source import PollSource
 
 log = logging.getLogger(__name__)
 
-OutcomeCallback = Callable[[PollOutcome], Awaitable[None] | None]
+# A returned awaitable is awaited; any other result (a handler may return what it made
+# of the outcome for its own callers) is ignored.
+OutcomeCallback = Callable[[PollOutcome], object]
 
 _JOB_PREFIX = "poll:"
 
@@ -85,7 +87,7 @@ class PollScheduler:
         # Where the first poll of each device lands: spread over this many seconds.
         self.start_spread_s = start_spread_s
         self.devices: dict[str, DeviceSchedule] = {}
-        self._inflight: set[asyncio.Task] = set()
+        self._inflight: set[asyncio.Task[object]] = set()
         self._scheduler = AsyncIOScheduler(timezone=UTC)
         self._stopping = False
         for source in sources:

@@ -28,7 +28,7 @@ def watts_to_dbm(watts: float) -> float:
 
 
 def dbm_to_mw(dbm: float) -> float:
-    return 10.0 ** (dbm / 10.0)
+    return math.pow(10.0, dbm / 10.0)
 
 
 def power_dbm(raw: float) -> float | None:
@@ -58,6 +58,6 @@ def bias_raw(milliamps: float, multiplier: int = 1) -> int:
     return min(max(round(milliamps / (BIAS_LSB_MA * multiplier)), 0), _U16_MAX)
 
 
-def checksum(data: bytes, start: int, end: int) -> int:
+def checksum(data: bytes | bytearray, start: int, end: int) -> int:
     """Low 8 bits of the sum of data[start:end] (end exclusive)."""
     return sum(data[start:end]) & 0xFF

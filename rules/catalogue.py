@@ -203,7 +203,7 @@ def parse_catalogue(text: str, origin: str = CATALOGUE_FILE) -> list[PmdSpec]:
                 f"{where('name')}: {name!r} already defined in row {seen[_key(name)]}"
             )
         seen[_key(name)] = rownum
-        values: dict[str, object] = {
+        values: dict[str, float | None] = {
             c: _parse_float(row.get(c, ""), where(c)) for c in _FLOAT_COLUMNS
         }
         lanes_text = row.get("lanes", "") or "1"
@@ -226,7 +226,7 @@ def parse_catalogue(text: str, origin: str = CATALOGUE_FILE) -> list[PmdSpec]:
             ("wavelength_min_nm", "wavelength_max_nm"),
         ):
             lo, hi = values[low], values[high]
-            if lo is not None and hi is not None and lo >= hi:  # type: ignore[operator]
+            if lo is not None and hi is not None and lo >= hi:
                 raise CatalogueError(f"{where(low)}: {lo} is not below {high} {hi}")
         specs.append(
             PmdSpec(
@@ -234,7 +234,7 @@ def parse_catalogue(text: str, origin: str = CATALOGUE_FILE) -> list[PmdSpec]:
                 clause=row.get("clause", ""),
                 lanes=lanes,
                 source=row["source"],
-                **values,  # type: ignore[arg-type]
+                **values,
             )
         )
     return specs

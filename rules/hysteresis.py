@@ -58,6 +58,11 @@ _DARK = int(Condition.DARK)
 _WORSE, _BETTER, _TO_UNKNOWN = 1, -1, 2
 
 
+# What identifies one poll's row layout: (port, serial) per optic, then the optic, lane
+# and quantity columns as bytes.
+_Layout = tuple[tuple[tuple[str, str], ...], bytes, bytes, bytes]
+
+
 @dataclass(slots=True, frozen=True)
 class HysteresisPolicy:
     """How long a change must hold, and how far back past an edge a value must come."""
@@ -200,7 +205,7 @@ class ConditionTracker:
         self._size = 0
         # device -> (layout signature, slot index per batch row); polls of one device
         # usually repeat the same rows in the same order, so the key lookups run once.
-        self._layouts: dict[str, tuple[tuple, np.ndarray]] = {}
+        self._layouts: dict[str, tuple[_Layout, np.ndarray]] = {}
 
     def __len__(self) -> int:
         return len(self._keys)
@@ -260,7 +265,7 @@ class ConditionTracker:
         self, batch: ReadingBatch, instant: np.ndarray, strict: np.ndarray, now: float
     ) -> np.ndarray:
         """Advance every row of one poll; returns held conditions aligned with the rows."""
-        signature = (
+        signature: _Layout = (
             tuple((o.port, o.serial) for o in batch.optics),
             batch.optic.tobytes(),
             batch.lane.tobytes(),

@@ -361,21 +361,21 @@ class AlertLifecycle:
         tracked = self.state.keys_for(device)
         rows = np.flatnonzero(alerting | _tracked_rows(batch, tracked) if tracked else alerting)
         row_of: dict[str, int] = {}
-        for i in rows:
-            key = _row_key(batch, int(i))
+        for i in map(int, rows):
+            key = _row_key(batch, i)
             j = row_of.get(key)
             if j is None or severity[i] > severity[j]:
-                row_of[key] = int(i)
+                row_of[key] = i
         events: list[AlertEvent] = []
         for key, i in row_of.items():
             if alerting[i]:
                 self._bad(key, i, assessment, now, context, events)
         for key in list(tracked):
-            i = row_of.get(key)
-            if i is None:
+            row = row_of.get(key)
+            if row is None:
                 self._clear(key, None, assessment, now, events)  # the optic is gone
-            elif not alerting[i] and cond[i] != Condition.UNKNOWN:
-                self._clear(key, i, assessment, now, events)
+            elif not alerting[row] and cond[row] != Condition.UNKNOWN:
+                self._clear(key, row, assessment, now, events)
             # UNKNOWN: no evidence either way; the track waits as it is.
         return events
 

@@ -316,9 +316,11 @@ def _merge(
     used = {s for s in sources[:2] if s is not WindowSource.NONE}
     if len(used) > 1:
         notes.append(", ".join(f"{words[k]} from {sources[k].word}" for k in (0, 1)))
+    low_edge, high_edge, low_warning, high_warning = (
+        NAN if v is None else float(v) for v in values)
     return Window(
-        *(NAN if v is None else float(v) for v in values),
-        sources=tuple(sources),  # type: ignore[arg-type]
+        low_edge, high_edge, low_warning, high_warning,
+        sources=(sources[0], sources[1], sources[2], sources[3]),
         note="; ".join(notes),
     )
 
@@ -392,6 +394,10 @@ def resolve_windows(
     return _resolve(optic, catalogue, [index.overrides[i] for i in index.matching(optic)])
 
 
+# (PMD, Rx power type, module thresholds, indices of the matching overrides)
+_CacheKey = tuple[str, str, tuple[tuple[Quantity, Thresholds], ...], tuple[int, ...]]
+
+
 class WindowResolver:
     """Resolves windows for many optics, once per distinct (PMD, Rx power type, module
     thresholds, matching overrides); a fleet has few distinct ones.
@@ -405,17 +411,17 @@ class WindowResolver:
     def __init__(
         self,
         catalogue: Catalogue,
-        overrides: Iterable[WindowOverride] = (),
+        overrides: Iterable[WindowOverride] | OverrideIndex = (),
         max_entries: int = 65536,
     ) -> None:
         self.catalogue = catalogue
         self.index = overrides if isinstance(overrides, OverrideIndex) else OverrideIndex(overrides)
         self.max_entries = max_entries
-        self._cache: dict[tuple, OpticWindows] = {}
+        self._cache: dict[_CacheKey, OpticWindows] = {}
 
     def __call__(self, optic: OpticIdentity) -> OpticWindows:
         matched = self.index.matching(optic)
-        key = (
+        key: _CacheKey = (
             optic.pmd,
             optic.rx_power_type,
             # The collector fills thresholds in a fixed order, so no sort is needed; a
@@ -423,13 +429,14 @@ class WindowResolver:
             tuple(optic.thresholds.items()),
             matched,
         )
+        cacheable = True
         try:
             found = self._cache.get(key)
         except TypeError:  # unhashable threshold values: resolve without caching
-            found, key = None, None
+            found, cacheable = None, False
         if found is None:
             found = _resolve(optic, self.catalogue, [self.index.overrides[i] for i in matched])
-            if key is not None:
+            if cacheable:
                 if len(self._cache) >= self.max_entries:
                     self._cache.clear()
                 self._cache[key] = found

@@ -31,5 +31,9 @@ python3 -m venv .venv
 .venv/bin/python -m pip install -q -e '.[test]'
 echo "== ruff"
 .venv/bin/ruff check .
+echo "== mypy"
+.venv/bin/python tests/typecheck.py
+echo "== import contracts"
+.venv/bin/lint-imports
 echo "== pytest"
 exec .venv/bin/python -m pytest "$@"

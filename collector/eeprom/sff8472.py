@@ -58,8 +58,8 @@ class _Cal:
     def __init__(self, external: bool, a2: bytes | None) -> None:
         self.external = external
         if external and a2 is not None:
-            self.rx_poly = _RX_POLY.unpack_from(a2, A2 + 56)
-            self.linear = _LINEAR.unpack_from(a2, A2 + 76)
+            self.rx_poly: tuple[float, ...] = _RX_POLY.unpack_from(a2, A2 + 56)
+            self.linear: tuple[int, ...] = _LINEAR.unpack_from(a2, A2 + 76)
         else:
             self.rx_poly = (0.0, 0.0, 0.0, 1.0, 0.0)
             self.linear = (256, 0, 256, 0, 256, 0, 256, 0)

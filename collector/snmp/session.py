@@ -8,6 +8,7 @@ message names the agent and what was being read, and never a secret.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import Protocol
 
 from pyasn1.type import univ
 from pysnmp.hlapi.v3arch.asyncio import (
@@ -46,6 +47,14 @@ _AUTH_ERRORS = (
 
 #: Hard ceiling on GETBULK round trips per walk, so a misbehaving agent cannot loop us.
 MAX_WALK_REQUESTS = 10_000
+
+
+class _ErrorStatus(Protocol):
+    """pysnmp's errorStatus value (untyped there): false when 0, named by prettyPrint."""
+
+    def __bool__(self) -> bool: ...
+
+    def prettyPrint(self) -> str: ...
 
 
 class SnmpError(Exception):
@@ -186,14 +195,16 @@ class SnmpSession:
             result[requested] = plain(value, octets)
         return result
 
-    def _check(self, indication: object, status: object, what: str, where: str = "") -> None:
+    def _check(
+        self, indication: object, status: _ErrorStatus, what: str, where: str = ""
+    ) -> None:
         """Raise for a transport failure or an error-status answer (errorStatus != 0)."""
         if indication:
             raise self._fail(indication, what)
         if status:
             raise SnmpError(
                 PollErrorKind.PROTOCOL,
-                f"{self.where} answered {status.prettyPrint()}{where} "  # type: ignore[attr-defined]
+                f"{self.where} answered {status.prettyPrint()}{where} "
                 f"while reading {what}",
             )
 

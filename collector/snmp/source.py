@@ -33,7 +33,13 @@ from lightwarden.collector.snmp.inventory import (
     PmdNames,
     build_inventory,
 )
-from lightwarden.collector.snmp.session import EnginePool, SnmpError, SnmpSession, parse_oid
+from lightwarden.collector.snmp.session import (
+    EnginePool,
+    Oid,
+    SnmpError,
+    SnmpSession,
+    parse_oid,
+)
 
 log = logging.getLogger(__name__)
 
@@ -231,12 +237,12 @@ class SnmpSource:
         for key in [k for k in self._maps if k not in live_keys]:
             del self._maps[key]
         for spec in inventory.optics:
-            idx = spec.identity.if_index
-            if idx is None:
+            if_index = spec.identity.if_index
+            if if_index is None:
                 continue
-            notes = apply_to_identity(spec.identity, self._maps[keyed[idx]])
+            notes = apply_to_identity(spec.identity, self._maps[keyed[if_index]])
             if notes:
-                self._map_notes[idx] = notes
+                self._map_notes[if_index] = notes
         self._maps_pending = False
 
     async def _fetch_maps(
@@ -255,7 +261,9 @@ class SnmpSource:
             found.update({i: got[f"{column}.{i}"] for i in chunk})
         return found
 
-    def _build(self, inventory: Inventory, live: dict, now: float) -> ReadingBatch:
+    def _build(
+        self, inventory: Inventory, live: dict[str, dict[Oid, object]], now: float
+    ) -> ReadingBatch:
         values, statuses = live[SENSOR_VALUE], live[SENSOR_STATUS]
         admin, oper = live[IF_ADMIN], live[IF_OPER]
         builder = BatchBuilder(self._name)

@@ -26,7 +26,6 @@ from lightwarden.collector.readings import (
     ReadingBatch,
     ReadingStatus,
     Thresholds,
-    mw_to_dbm,
 )
 from lightwarden.collector.ssh.platforms.platform import (
     QUANTITY_KEYS,
@@ -35,6 +34,7 @@ from lightwarden.collector.ssh.platforms.platform import (
     ReadingsTable,
     ThresholdsTable,
 )
+from lightwarden.collector.units import mw_to_dbm
 
 POWER = (Quantity.RX_POWER, Quantity.TX_POWER)
 
@@ -173,7 +173,9 @@ class _PortRows:
     broken: list[tuple[int, str, ReadingsTable]] = field(default_factory=list)
 
 
-def _inventory(platform: Platform, text: str | None, problems: list[str]) -> dict[str, dict]:
+def _inventory(
+    platform: Platform, text: str | None, problems: list[str]
+) -> dict[str, dict[str, str]]:
     inv = platform.inventory
     if inv is None or text is None:
         return {}
@@ -182,7 +184,7 @@ def _inventory(platform: Platform, text: str | None, problems: list[str]) -> dic
         problems.append(_unmatched_problem(platform, inv.command, lineno, line))
     blanks = {w.lower() for w in (*platform.no_light, *platform.not_supported,
                                   *platform.unavailable)}
-    out: dict[str, dict] = {}
+    out: dict[str, dict[str, str]] = {}
     for row in table.rows:
         port = row.get(inv.columns.port, "")
         if not port:
@@ -266,12 +268,12 @@ def parse_outputs(
     if platform.inventory and platform.inventory.command not in outputs:
         problems.append(f"no output for {platform.inventory.command!r}")
     thresholds: dict[str, dict[Quantity, Thresholds]] = {}
-    for tdef in platform.thresholds_tables():
-        text = outputs.get(tdef.command)
+    for thdef in platform.thresholds_tables():
+        text = outputs.get(thdef.command)
         if text is None:
-            problems.append(f"no output for {tdef.command!r}")
+            problems.append(f"no output for {thdef.command!r}")
             continue
-        for port, per_q in _thresholds(platform, tdef, text, problems).items():
+        for port, per_q in _thresholds(platform, thdef, text, problems).items():
             thresholds.setdefault(port, {}).update(per_q)
 
     ports: dict[str, _PortRows] = {}

@@ -131,6 +131,8 @@ def post(
     if parts.username is not None:
         cred = f"{unquote(parts.username)}:{unquote(parts.password or '')}".encode()
         hdrs["Authorization"] = "Basic " + base64.b64encode(cred).decode("ascii")
+    if not parts.hostname:
+        raise DeliveryError(f"POST {safe}: the URL names no host", retryable=False)
     path = parts.path or "/"
     if parts.query:
         path += "?" + parts.query

@@ -19,9 +19,10 @@ import json
 import sqlite3
 import threading
 import time
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from types import TracebackType
 from typing import Any
 
 from lightwarden.rules import event_codec
@@ -109,7 +110,7 @@ def check_event(event: AlertEvent) -> None:
 class Outbox:
     """SQLite-backed queue of alert events per destination, and named state snapshots."""
 
-    def __init__(self, path: str | Path, clock=time.time) -> None:
+    def __init__(self, path: str | Path, clock: Callable[[], float] = time.time) -> None:
         self.path = Path(path)
         self._clock = clock
         self._lock = threading.Lock()
@@ -255,7 +256,7 @@ class Outbox:
     def dead_letters(self, destination: str | None = None) -> list[tuple[str, AlertEvent, str]]:
         """(destination, event, reason) of every buried row, oldest first."""
         sql = "SELECT destination, body, reason FROM dead_letter"
-        args: tuple = ()
+        args: tuple[str, ...] = ()
         if destination is not None:
             sql += " WHERE destination=?"
             args = (destination,)
@@ -290,9 +291,12 @@ class Outbox:
         if row is None:
             return None
         try:
-            return json.loads(row[0])
+            body = json.loads(row[0])
         except ValueError as exc:
             raise OutboxError(f"state snapshot {name!r} in {self.path} is corrupt: {exc}") from None
+        if not isinstance(body, dict):
+            raise OutboxError(f"state snapshot {name!r} in {self.path} is not a JSON object")
+        return body
 
     # -- internals -------------------------------------------------------------------
 
@@ -311,7 +315,12 @@ class _Transaction:
     def __enter__(self) -> None:
         self._db.execute("BEGIN IMMEDIATE")
 
-    def __exit__(self, exc_type, exc, tb) -> None:
+    def __exit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        tb: TracebackType | None,
+    ) -> None:
         if exc_type is None:
             self._db.execute("COMMIT")
         else:

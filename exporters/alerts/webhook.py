@@ -38,7 +38,8 @@ def to_webhook(
     event: AlertEvent, now: float, static_labels: dict[str, str] | None = None
 ) -> dict[str, Any]:
     """The ``lightwarden.alert.v1`` document for one event."""
-    times = {"starts_at": rfc3339(event.starts_at), "at": rfc3339(event.at)}
+    times: dict[str, str | None] = {
+        "starts_at": rfc3339(event.starts_at), "at": rfc3339(event.at)}
     times["ends_at"] = rfc3339(event.ends_at) if event.ends_at is not None else None
     doc: dict[str, Any] = {
         "schema": SCHEMA,

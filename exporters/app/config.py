@@ -304,7 +304,7 @@ def _key_node_at(root: yaml.Node | None, loc: tuple[Any, ...]) -> yaml.Node | No
     parent = _node_at(root, loc[:-1])
     if isinstance(parent, yaml.MappingNode):
         for k, _v in parent.value:
-            if k.value == str(loc[-1]):
+            if isinstance(k, yaml.Node) and k.value == str(loc[-1]):
                 return k
     return None
 

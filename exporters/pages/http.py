@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import gzip
 import logging
+import socket
 import threading
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -62,6 +63,10 @@ def accepts_gzip(accept_encoding: str | None) -> bool:
     return False
 
 
+# What socketserver hands a server per connection (a TCP server gets the socket alone).
+_Request = socket.socket | tuple[bytes, socket.socket]
+
+
 class _Server(ThreadingHTTPServer):
     daemon_threads = True
     # SO_REUSEADDR lets a restarted service rebind at once; the port is ours alone.
@@ -71,7 +76,7 @@ class _Server(ThreadingHTTPServer):
         self.owner = owner
         super().__init__(addr, _Handler)
 
-    def process_request(self, request, client_address) -> None:  # type: ignore[override]
+    def process_request(self, request: _Request, client_address: tuple[str, int]) -> None:
         # Cap concurrent connections: past the cap, close at once instead of spawning
         # threads without bound for clients that may never send a byte.
         if not self.owner._slots.acquire(blocking=False):
@@ -86,13 +91,15 @@ class _Server(ThreadingHTTPServer):
             self.owner._slots.release()
             raise
 
-    def process_request_thread(self, request, client_address) -> None:  # type: ignore[override]
+    def process_request_thread(
+        self, request: _Request, client_address: tuple[str, int]
+    ) -> None:
         try:
             super().process_request_thread(request, client_address)
         finally:
             self.owner._slots.release()
 
-    def handle_error(self, request, client_address) -> None:  # type: ignore[override]
+    def handle_error(self, request: _Request, client_address: tuple[str, int]) -> None:
         # The default prints a traceback to stderr; a dropped or timed-out client is
         # routine, and the details could echo request content.
         log.debug("HTTP connection from %s ended with an error", client_address[0])
@@ -105,10 +112,11 @@ class _Handler(BaseHTTPRequestHandler):
     sys_version = ""
 
     def setup(self) -> None:
-        # Socket timeout for every read and write on this connection (StreamRequestHandler
-        # applies self.timeout); an idle keep-alive connection also ends after it.
-        self.timeout = self.server.owner.socket_timeout
         super().setup()
+        # Socket timeout for every read and write on this connection; an idle keep-alive
+        # connection also ends after it. Set on the socket rather than through the class
+        # attribute ``timeout``, which every handler instance shares.
+        self.connection.settimeout(self.server.owner.socket_timeout)
 
     def do_GET(self) -> None:
         self._serve(head=False)

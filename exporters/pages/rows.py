@@ -43,8 +43,7 @@ class OpticRow:
     worst_row: int = -1  # batch row of the worst condition seen so far
 
     def as_json(self) -> dict[str, object]:
-        out = {k: getattr(self, k) for k in self.__slots__  # type: ignore[attr-defined]
-               if k not in _NOT_IN_JSON}
+        out = {k: getattr(self, k) for k in self.__slots__ if k not in _NOT_IN_JSON}
         for k, v in out.items():
             if isinstance(v, float):
                 out[k] = round(v, 3)

@@ -11,16 +11,12 @@ import time
 from html import escape
 
 from lightwarden.exporters.pages.http import HttpRequest, HttpServer, Response
-from lightwarden.exporters.pages.report import (
-    PlannerReport,
-    build_report,
-    render_report,
-    report_json,
-)
+from lightwarden.exporters.pages.report import build_report, render_report, report_json
 from lightwarden.exporters.pages.rows import OpticRow, optic_rows, worst_first
 from lightwarden.exporters.pages.view import MonitorView
 from lightwarden.rules.advice import LASER_CAUTION
 from lightwarden.rules.findings import AlertSeverity, Severity
+from lightwarden.rules.outlook import PlannerReport
 
 #: Row colour per rung of the one severity order (alerts and link issues use it too).
 _CLASS = {

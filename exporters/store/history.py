@@ -122,7 +122,7 @@ class History:
 
     def keys(self) -> list[tuple[str, str, int, int]]:
         with self._lock:
-            return [tuple(r) for r in self._db.execute(  # type: ignore[misc]
+            return [tuple(r) for r in self._db.execute(
                 "SELECT DISTINCT device, port, lane, quantity FROM reading ORDER BY 1, 2, 3, 4"
             )]
 

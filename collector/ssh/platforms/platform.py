@@ -276,7 +276,10 @@ class _Located:
 
 
 def _index_nodes(
-    node: yaml.Node, path: tuple[str | int, ...], out: dict, dupes: list
+    node: yaml.Node,
+    path: tuple[str | int, ...],
+    out: dict[tuple[str | int, ...], int],
+    dupes: list[tuple[tuple[str | int, ...], int]],
 ) -> None:
     out.setdefault(path, node.start_mark.line + 1)
     if isinstance(node, yaml.MappingNode):

@@ -14,7 +14,13 @@ from support.alert_helpers import Receiver, make_event
 from support.procs import wait_for
 
 from lightwarden.exporters.alerts.delivery import Dispatcher
-from lightwarden.exporters.alerts.http import AlertDestination, RetryPolicy, redact_url
+from lightwarden.exporters.alerts.http import (
+    AlertDestination,
+    DeliveryError,
+    RetryPolicy,
+    post,
+    redact_url,
+)
 from lightwarden.exporters.alerts.outbox import Outbox
 from lightwarden.exporters.alerts.webhook import SCHEMA, sign, verify
 
@@ -168,6 +174,13 @@ def test_credentials_never_logged(tmp_path, caplog):
     assert "127.0.0.1" in caplog.text  # the log does say where
     assert SECRET not in text and "nocuser" not in text
     assert redact_url(url) == f"http://***@127.0.0.1:{port.port}/hook?***"
+
+
+def test_url_without_host_is_a_named_error_not_a_crash():
+    with pytest.raises(DeliveryError) as got:
+        post(f"http://user:{SECRET}@/hook", b"{}", {}, timeout_s=1.0)
+    assert not got.value.retryable  # sending again cannot give the URL a host
+    assert "names no host" in str(got.value) and SECRET not in str(got.value)
 
 
 def test_sign_is_hmac_sha256_over_timestamp_dot_body():

@@ -38,10 +38,6 @@ class Series:
         return int(self.times.shape[0])
 
 
-def empty_series() -> Series:
-    return Series(np.empty(0), np.empty(0))
-
-
 @dataclass(slots=True, frozen=True)
 class RxWindow:
     """The last Rx window a lane was judged against, kept so reports need no live poll."""

@@ -49,7 +49,8 @@ class Credential(_Model):
         raise AssertionError("validated to hold exactly one")  # pragma: no cover
 
 
-CREDENTIAL_FIELDS = ("snmp_v2c", "snmp_v3", "ssh")
+#: every credential kind, in the order the sources declare them
+CREDENTIAL_FIELDS = snmp_config.CREDENTIAL_KEYS + ssh_config.CREDENTIAL_KEYS
 
 
 def _protocol_of(value: Any) -> str:

@@ -1,7 +1,8 @@
 """Which sources exist: protocol name -> its device entry model and ``from_config``.
 
-A new source is one entry here (and one member of ``config.Device``); its folder under
-``collector/`` holds the model, the credential kinds it accepts and ``from_config``.
+A new source is one entry here (and one member of ``config.Device`` and ``Credential``);
+its folder under ``collector/`` holds the model, the credential kinds it accepts
+(``CREDENTIAL_KEYS``, which the config checks) and ``from_config``.
 """
 
 from __future__ import annotations
@@ -10,7 +11,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from lightwarden.collector.entry import BuildContext, ConfigError, DeviceEntry, SharedParts
+from lightwarden.collector.entry import BuildContext, ConfigError, DeviceEntry
 from lightwarden.collector.snmp import config as snmp
 from lightwarden.collector.source import PollSource
 from lightwarden.collector.ssh import config as ssh
@@ -20,7 +21,6 @@ from lightwarden.exporters.app.config import SiteConfig
 @dataclass(slots=True, frozen=True)
 class SourceKind:
     device_model: type[DeviceEntry]
-    credential_keys: tuple[str, ...]
     #: the site-wide settings this source reads, from the whole config
     settings: Callable[[SiteConfig], object]
     from_config: Callable[..., PollSource]
@@ -34,9 +34,9 @@ def _ssh_settings(cfg: SiteConfig) -> ssh.SshSettings:
 
 
 SOURCES: dict[str, SourceKind] = {
-    snmp.PROTOCOL: SourceKind(snmp.SnmpDevice, snmp.CREDENTIAL_KEYS, lambda _cfg: None,
+    snmp.PROTOCOL: SourceKind(snmp.SnmpDevice, lambda _cfg: None,
                               snmp.from_config),
-    ssh.PROTOCOL: SourceKind(ssh.SshDevice, ssh.CREDENTIAL_KEYS, _ssh_settings,
+    ssh.PROTOCOL: SourceKind(ssh.SshDevice, _ssh_settings,
                              ssh.from_config),
 }
 
@@ -58,4 +58,4 @@ def build_sources(cfg: SiteConfig, devices: list[Any], ctx: BuildContext) -> lis
     return out
 
 
-__all__ = ["SOURCES", "BuildContext", "SharedParts", "SourceKind", "build_sources"]
+__all__ = ["SOURCES", "SourceKind", "build_sources"]

@@ -36,6 +36,7 @@ from lightwarden.rules.findings import (
     Condition,
     Severity,
     WindowSource,
+    alert_key,
 )
 
 # Phases of one key's track (see DEVELOPERS.md for the table).
@@ -147,19 +148,6 @@ class LifecycleConfig:
             raise ValueError(f"{exc} (for {Quantity(quantity).label} lane {lane})") from None
         self._cache[cache_key] = found
         return found
-
-
-def _escape(part: str) -> str:
-    return part.replace("%", "%25").replace("|", "%7C")
-
-
-def alert_key(device: str, port: str, lane: int, quantity: Quantity) -> str:
-    """Stable identity of one alert subject: "device|port|lane|quantity".
-
-    No instance id in it, so two monitors watching the same device agree on it. "|" and
-    "%" inside names are percent-escaped so that the key splits back unambiguously.
-    """
-    return f"{_escape(device)}|{_escape(port)}|{lane}|{Quantity(quantity).label}"
 
 
 @dataclass(slots=True)

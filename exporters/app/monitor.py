@@ -171,10 +171,15 @@ class Monitor:
         assert self.history is not None
         b = a.batch
         rx = np.flatnonzero(b.quantity == int(Quantity.RX_POWER))
+        assert a.edge_sources is not None
+        # The margin edges' source (sensitivity's, else overload's): what trends and the
+        # report measure margins to.
+        src = np.where(a.edge_sources[:, 0] != int(WindowSource.NONE), a.edge_sources[:, 0],
+                       a.edge_sources[:, 1])
         windows = [
             RxWindow(b.device, b.optics[int(b.optic[i])].port, int(b.lane[i]),
                      b.optics[int(b.optic[i])].pmd, _edge(a.low_edge[i]), _edge(a.high_edge[i]),
-                     WindowSource(int(a.window_source[i])).word, b.taken_at)
+                     WindowSource(int(src[i])).word, b.taken_at)
             for i in rx
         ]
         try:

@@ -109,6 +109,9 @@ class OpticIdentity:
     admin_up: bool | None = None
     #: Module-declared thresholds per quantity (from the memory map or CLI output).
     thresholds: dict[Quantity, Thresholds] = field(default_factory=dict)
+    #: What the device reports about this optic that cannot be right (two sensors for
+    #: one lane, say): shown on the page, in ``check`` and counted in the health metric.
+    problems: list[str] = field(default_factory=list)
 
     @property
     def key(self) -> tuple[str, str]:

@@ -49,6 +49,7 @@ from lightwarden.rules.windows import (
     Window,
     WindowOverride,
     WindowResolver,
+    total_window,
 )
 
 _Q = len(Quantity)
@@ -165,6 +166,21 @@ def _window_table(
         optic_u[i] = u
     windows = [w for ow in resolved for w in ow.by_quantity]
     row_win = optic_u[batch.optic] * _Q + batch.quantity.astype(np.int64)
+    total = (batch.lane == 0) & ((batch.quantity == _RX) | (batch.quantity == _TX))
+    if total.any():
+        # A total-power reading of a multi-lane optic: its per-lane window, moved up.
+        made: dict[tuple[int, int, int], int] = {}
+        for r in np.flatnonzero(total).tolist():
+            o, q = int(batch.optic[r]), int(batch.quantity[r])
+            lanes = batch.optics[o].lanes
+            if lanes <= 1:
+                continue
+            key = (int(optic_u[o]), q, lanes)
+            k = made.get(key)
+            if k is None:
+                k = made[key] = len(windows)
+                windows.append(total_window(resolved[key[0]].by_quantity[q], lanes))
+            row_win[r] = k
     for u, ow in enumerate(resolved):
         if not ow.by_lane:
             continue

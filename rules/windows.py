@@ -172,6 +172,22 @@ class Window:
 EMPTY_WINDOW = Window()
 
 
+def total_window(window: Window, lanes: int) -> Window:
+    """The window of a total-power reading over ``lanes`` equal lanes.
+
+    Every per-lane edge in dBm moves up by 10 log10(lanes) (four equal lanes carry four
+    times one lane's power: +6.0 dB; dB arithmetic, standards.md). A total hides one weak
+    lane behind three good ones, so the note says it is judged on that assumption.
+    """
+    if lanes <= 1:
+        return window
+    shift = 10.0 * math.log10(lanes)
+    note = (f"total power of {lanes} lanes: judged against the per-lane edges "
+            f"+{shift:.1f} dB (assumes equal lanes; a weak lane can hide in a total)")
+    return Window(*(e + shift for e in window.edges), sources=window.sources,
+                  note="; ".join(t for t in (window.note, note) if t))
+
+
 @dataclass(slots=True, frozen=True)
 class OpticWindows:
     """Every window of one optic: one per quantity, plus lane-specific exceptions."""

@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
+from lightwarden.collector.readings import LANE_QUANTITIES, PollOutcome, Quantity, ReadingStatus
 from lightwarden.rules.advice import advise
 from lightwarden.rules.assess import MarginTargets
 from lightwarden.rules.findings import (
@@ -119,9 +119,10 @@ def optic_rows(assessment: Assessment, targets: MarginTargets | None = None) -> 
     module: dict[int, list[int]] = {}
     for i in range(len(batch)):
         o, lane = int(batch.optic[i]), int(batch.lane[i])
-        if lane == 0:
+        if lane == 0 and Quantity(int(batch.quantity[i])) not in LANE_QUANTITIES:
             module.setdefault(o, []).append(i)
             continue
+        # lane 0 of a lane quantity: a total over all lanes, on a row of its own
         row = rows.get((o, lane))
         if row is None:
             optic = batch.optics[o]
@@ -139,6 +140,10 @@ def optic_rows(assessment: Assessment, targets: MarginTargets | None = None) -> 
     for (o, _lane), row in rows.items():
         for i in module.get(o, ()):
             _fold(row, assessment, i)
+        for problem in batch.optics[o].problems:
+            text = f"device problem: {problem}"
+            if text not in row.notes:
+                row.notes.append(text)
     for row in rows.values():
         if row.severity >= Severity.WARNING:
             _advise(row, assessment, targets)

@@ -77,7 +77,8 @@ CONTENT_TYPE = "text/plain; version=0.0.4; charset=utf-8"
     F_DEVICE_POLL_DURATION,
     F_DEVICE_POLL_ERRORS,
     F_DEVICE_OPTICS,
-) = range(20)
+    F_DEVICE_PROBLEMS,
+) = range(21)
 
 
 def escape_label_value(value: str) -> str:
@@ -185,6 +186,12 @@ DEVICE_FAMILIES: tuple[Family, ...] = (
         "gauge",
         "Optics found in the device by the last successful poll.",
     ),
+    Family(
+        "lightwarden_device_problems",
+        "gauge",
+        "Things the device reports about its optics that cannot be right (two sensors for "
+        "one lane, say), counted at the last successful poll; the page and check name them.",
+    ),
 )
 
 TARGET_OVERLOAD = Family(
@@ -266,6 +273,7 @@ class _Health:
     errors: dict[str, int] = field(default_factory=dict)
     last_success: float | None = None
     optics: int | None = None
+    problems: int = 0
     duration: float = 0.0
     up: bool = False
 
@@ -556,8 +564,10 @@ class Exposition:
             if outcome.ok and outcome.batch is not None:
                 h.last_success = outcome.batch.taken_at
                 h.optics = len(outcome.batch.optics)
-            health = (h.up, h.duration, h.last_success, h.optics, sorted(h.errors.items()))
-        up, duration, last_success, optics, errors = health
+                h.problems = sum(len(o.problems) for o in outcome.batch.optics)
+            health = (h.up, h.duration, h.last_success, h.optics, sorted(h.errors.items()),
+                      h.problems)
+        up, duration, last_success, optics, errors, problems = health
         lines[F_DEVICE_UP].append(f'lightwarden_device_up{{device="{dev}"}} {int(up)}\n')
         if math.isfinite(duration):
             lines[F_DEVICE_POLL_DURATION].append(
@@ -571,6 +581,8 @@ class Exposition:
             )
         if optics is not None:
             lines[F_DEVICE_OPTICS].append(f'lightwarden_device_optics{{device="{dev}"}} {optics}\n')
+            lines[F_DEVICE_PROBLEMS].append(
+                f'lightwarden_device_problems{{device="{dev}"}} {problems}\n')
         for kind, count in errors:
             lines[F_DEVICE_POLL_ERRORS].append(
                 f'lightwarden_device_poll_errors_total{{device="{dev}",'

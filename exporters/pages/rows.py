@@ -150,9 +150,23 @@ def optic_rows(assessment: Assessment, targets: MarginTargets | None = None) -> 
     return list(rows.values())
 
 
+def cause_words(key: str) -> str:
+    """An alert key ("dev|port|lane|quantity") as people read it: "dev port lane 1 Tx"."""
+    parts = [p.replace("%7C", "|").replace("%25", "%") for p in key.split("|")]
+    if len(parts) != 4:
+        return key
+    device, port, lane, quantity = parts
+    return f"{device} {port} lane {lane} {quantity.replace('_', ' ')}"
+
+
 def _advise(row: OpticRow, a: Assessment, targets: MarginTargets) -> None:
     i = row.worst_row
     b = a.batch
+    cause = a.cause.get(i)
+    if cause:
+        row.advice = (f"Explained by {cause_words(cause)}: act on that reading; this one "
+                      "follows it.")
+        return
     advice = advise(Condition(int(a.condition[i])), Quantity(int(b.quantity[i])),
                     float(b.value[i]), low_edge=float(a.low_edge[i]),
                     high_edge=float(a.high_edge[i]), targets=targets)

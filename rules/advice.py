@@ -131,8 +131,20 @@ _TX_DARK = (
     "light does not come back, schedule replacement of the optic at this end."
 )
 _TX_FAULT = (
-    "The laser at this end is driven but gives no light: the transmitter has failed. "
-    "Schedule replacement of the optic at this end."
+    "The transmitter at this end has failed (the module flags TX_FAULT, or its laser is "
+    "driven and gives no light). Schedule replacement of the optic at this end."
+)
+_LOS = (
+    "The module flags loss of signal on this receiver: check the far-end transmitter, the "
+    "patching and the connectors along the path."
+)
+_NOT_READY = (
+    "The module is not in its ready state: check the port configuration and the module's "
+    "seating; reseat it, and replace it if it stays out of the ready state."
+)
+_LATCHED = (
+    "The module latched this flag since it was last read, though the reading is back inside "
+    "its levels: a transient excursion. Look at the history around it and watch for a repeat."
 )
 _OFF_STANDARD = (
     "Tx power is outside the standard's launch window for this PMD, though inside the "
@@ -202,6 +214,12 @@ def advise(
         return Advice(_LASER_OFF, LASER_CAUTION)
     if condition is Condition.TX_FAULT:
         return Advice(_TX_FAULT, LASER_CAUTION)
+    if condition is Condition.LOSS_OF_SIGNAL:
+        return Advice(_LOS, LASER_CAUTION)
+    if condition is Condition.NOT_READY:
+        return Advice(_NOT_READY, LASER_CAUTION)
+    if condition in (Condition.LATCHED_ALARM, Condition.LATCHED_WARNING):
+        return Advice(_LATCHED, "")
     if condition is Condition.OFF_STANDARD:
         return Advice(_OFF_STANDARD, LASER_CAUTION)
     if condition is Condition.DARK:

@@ -264,6 +264,7 @@ def assess(
 
     cause = _near_end_transmitters(batch, dark & (q == _TX), (instant, strict), instant_edge,
                                    note)
+    _module_flags(batch, (instant, strict), instant_edge, note)
 
     unjudged = ok & (source == WindowSource.NONE)
     note(unjudged, NO_WINDOW_NOTE)
@@ -352,6 +353,81 @@ def _near_end_transmitters(
                 arr[r] = Condition.TX_FAULT
             note(mark, TX_FAULT_NOTE.format(bias))
     return cause
+
+
+TX_FAULT_FLAG_NOTE = "the module flags a transmitter fault (TX_FAULT)"
+LOS_FLAG_NOTE = "the module flags loss of signal (RX_LOS)"
+NOT_READY_NOTE = "module state {!r}, not ready (CMIS)"
+LATCHED_NOTE = "the module latched its {} flag since it was last read"
+
+_FLAG_QUANTITY = {q.label: q for q in Quantity}
+
+
+def _module_flags(
+    batch: ReadingBatch,
+    judged: tuple[np.ndarray, ...],
+    edge: np.ndarray,
+    note: Callable[[np.ndarray, str], None],
+) -> None:
+    """Conditions from the status flags a module sets (its memory map).
+
+    TX_FAULT on a lane's Tx row and RX_LOS on an Rx row that still reads light are
+    conditions of their own (a dark Rx stays DARK: the flag says the same). A CMIS module
+    out of its ready state is NOT_READY on its module-wide rows. Latched alarm and warning
+    flags mark the flagged reading LATCHED_ALARM / LATCHED_WARNING only when its own
+    judgement is milder (a value back inside its levels, flagged in between).
+    """
+    flagged = [(o, opt) for o, opt in enumerate(batch.optics)
+               if opt.flags or opt.module_state not in ("", "ready")]
+    if not flagged:
+        return
+    rows: dict[tuple[int, int, int], int] = {}
+    for r in np.flatnonzero(np.isin(batch.optic, [o for o, _ in flagged])).tolist():
+        rows.setdefault((int(batch.optic[r]), int(batch.quantity[r]), int(batch.lane[r])), r)
+
+    def mark(r: int, condition: Condition, text: str, *, only_if_milder: bool = False) -> None:
+        current = Condition(int(judged[0][r]))
+        if only_if_milder and current.severity >= condition.severity:
+            return
+        if current in (Condition.LASER_OFF, Condition.DARK) and condition is not \
+                Condition.NOT_READY:
+            return  # no light at all already says more than the flag
+        for arr in judged:
+            arr[r] = condition
+        if condition in (Condition.TX_FAULT, Condition.LOSS_OF_SIGNAL, Condition.NOT_READY):
+            edge[r] = Edge.NONE
+        one = np.zeros(len(batch), dtype=bool)
+        one[r] = True
+        note(one, text)
+
+    for o, opt in flagged:
+        for name, lane in sorted(opt.flags):
+            if name == "tx_fault":
+                r = rows.get((o, _TX, lane))
+                if r is not None:
+                    mark(r, Condition.TX_FAULT, TX_FAULT_FLAG_NOTE)
+            elif name == "rx_los":
+                r = rows.get((o, _RX, lane))
+                if r is not None and batch.status[r] == ReadingStatus.OK:
+                    mark(r, Condition.LOSS_OF_SIGNAL, LOS_FLAG_NOTE)
+            else:
+                label, _, level = name.rpartition("_")
+                quantity = _FLAG_QUANTITY.get(label.rsplit("_", 1)[0])
+                if quantity is None or level not in ("alarm", "warning"):
+                    continue
+                r = rows.get((o, int(quantity), lane))
+                if r is None or batch.status[r] != ReadingStatus.OK:
+                    continue
+                latched = Condition.LATCHED_ALARM if level == "alarm" else Condition.LATCHED_WARNING
+                mark(r, latched, LATCHED_NOTE.format(name.replace("_", " ")),
+                     only_if_milder=True)
+        if opt.module_state not in ("", "ready"):
+            for q in (Quantity.TEMPERATURE, Quantity.SUPPLY):
+                r = rows.get((o, int(q), 0))
+                if r is not None:
+                    mark(r, Condition.NOT_READY, NOT_READY_NOTE.format(opt.module_state),
+                         only_if_milder=True)
+                    break
 
 
 def _worst_per_optic(batch: ReadingBatch, condition: np.ndarray) -> np.ndarray:

@@ -75,8 +75,9 @@ def test_a_dark_receiver_with_a_lit_far_end_names_it_and_its_launch(tmp_path: Pa
 
 
 def test_generator_url_links_each_alert_to_its_optic():
-    from lightwarden.exporters.alerts.alertmanager import to_alertmanager
     from support.alert_helpers import make_event
+
+    from lightwarden.exporters.alerts.alertmanager import to_alertmanager
 
     ev = make_event("open", 1)
     doc = to_alertmanager(ev, ev.at, generator_url="http://qm-mon-a:9817/optic/{device}/{port}"

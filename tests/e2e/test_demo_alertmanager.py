@@ -65,7 +65,7 @@ def _dirty_connector_story() -> tuple[bool, str]:
            f"{sensitivity:g} dBm; the near-sensitivity target is {target:g} dB, so no alert "
            "can open (lab.yaml story needs a larger step)")
     # 0.3 dB: room for the hysteresis band; 0.5 dB: never past the edge itself
-    return 0.5 < min(rx) - sensitivity and margin < target - 0.3, why
+    return min(rx) - sensitivity > 0.5 and margin < target - 0.3, why
 
 
 DIRTY_REACHES_TARGET, DIRTY_WHY = _dirty_connector_story()

@@ -43,8 +43,8 @@ def test_a_pad_is_advised_with_the_laser_caution(capsys):
 
 
 def test_a_pad_already_fitted_counts_in_its_own_direction(capsys):
-    code, out, _ = run(capsys, "--a", "10GBASE-ER", "--b", "10GBASE-ER", "--length-km", "2",
-                       "--pad-b", "5", "--json")
+    _, out, _ = run(capsys, "--a", "10GBASE-ER", "--b", "10GBASE-ER", "--length-km", "2",
+                    "--pad-b", "5", "--json")
     ab, ba = json.loads(out)["directions"]
     assert (ab["verdict"], ab["pad_db"], ba["verdict"], ba["pad_db"]) == ("ok", None, "pad", 5.0)
 

@@ -399,8 +399,8 @@ def build_parser() -> argparse.ArgumentParser:
     rules_parser(ru)
     ru.set_defaults(func=cmd_rules)
 
-    from lightwarden.exporters.app.budget_cmd import build_parser as budget_parser
-    from lightwarden.exporters.app.budget_cmd import run as budget_run
+    from lightwarden.exporters.pages.budget import build_parser as budget_parser
+    from lightwarden.exporters.pages.budget import run as budget_run
 
     bu = sub.add_parser("budget", help="power budget of a planned link: will it close, which pad")
     budget_parser(bu)

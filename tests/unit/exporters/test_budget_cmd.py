@@ -71,3 +71,21 @@ def test_a_link_that_cannot_close_exits_1(capsys):
 def test_bad_input_exits_2_naming_the_option(capsys, argv, named):
     code, _, err = run(capsys, *argv)
     assert code == 2 and named in err and "Traceback" not in err
+
+
+def test_the_api_and_the_page_give_the_same_answer():
+    from lightwarden.exporters.pages.budget import budget_api, budget_page
+    from lightwarden.exporters.pages.http import HttpRequest
+
+    q = {"a": ["10GBASE-ER"], "b": ["10GBASE-ER"], "length_km": ["2"]}
+    code, ctype, body = budget_api(HttpRequest("GET", "/api/budget", q, {}))
+    assert code == 200 and ctype == "application/json"
+    doc = json.loads(body)
+    assert [d["pad_db"] for d in doc["directions"]] == [5.0, 5.0]
+    code, _, page = budget_page(HttpRequest("GET", "/budget", q, {}))
+    assert code == 200 and b"<b>pad</b>" in page and b"never look into a fibre end" in page
+    bad = {"a": ["10GBASE-ER"], "b": ["10GBASE-ER"], "length_km": ["-3"]}
+    code, _, body = budget_api(HttpRequest("GET", "/api/budget", bad, {}))
+    assert code == 400 and b"length-km" in body
+    code, _, body = budget_api(HttpRequest("GET", "/api/budget", {"zz": ["1"]}, {}))
+    assert code == 400 and b"unknown parameter" in body

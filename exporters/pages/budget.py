@@ -1,4 +1,5 @@
-"""``lightwarden budget``: will a link not yet built close, and with which pad?
+"""Will a link not yet built close, and with which pad? ``lightwarden budget``,
+``/api/budget`` and the ``/budget`` page, one set of options for all three.
 
 The arithmetic is rules/budget.py's (and rules/pads.py's worst-case pad rule, the one
 live links use); this module only reads options, looks the PMDs up and prints.
@@ -10,7 +11,10 @@ import argparse
 import json
 import math
 import sys
+from html import escape
+from urllib.parse import urlencode
 
+from lightwarden.exporters.pages.http import HttpRequest, HttpServer, Response
 from lightwarden.rules.budget import BudgetPlan, SpanPlan, plan_link
 from lightwarden.rules.catalogue import Catalogue, PmdSpec, default_catalogue
 from lightwarden.rules.pads import STOCKED_PADS_DB, PadTargets
@@ -141,3 +145,95 @@ def run(args: argparse.Namespace) -> int:
         return EXIT_USAGE
     print(json.dumps(plan.as_json(), indent=2) if args.json else render(plan))
     return EXIT_FAILS if plan.verdict.value == "fails" else EXIT_OK
+
+
+# -- over HTTP: the same options as query parameters ----------------------------------
+
+#: Query parameters the page and the API take: the command's options without "--".
+_PARAMS = ("a", "b", "length-km", "fibre", "connectors", "splices", "fibre-db-per-km",
+           "connector-db", "splice-db", "pad-a", "pad-b", "stock", "margin-sensitivity",
+           "margin-overload", "hysteresis")
+
+
+class _Refused(Exception):
+    pass
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # type: ignore[override]
+        raise _Refused(message)
+
+
+def _query_plan(req: HttpRequest) -> BudgetPlan:
+    argv: list[str] = []
+    for key, values in req.query.items():
+        name = key.replace("_", "-")
+        if name not in _PARAMS:
+            raise _Refused(f"unknown parameter {key!r} (known: {', '.join(_PARAMS)})")
+        argv += [f"--{name}", values[-1]]
+    args = build_parser(_Parser(prog="budget", add_help=False)).parse_args(argv)
+    try:
+        return plan_from_args(args)
+    except BudgetError as exc:
+        raise _Refused(str(exc).replace("--", "")) from None
+
+
+def budget_api(req: HttpRequest) -> Response:
+    try:
+        plan = _query_plan(req)
+    except _Refused as exc:
+        return 400, "application/json", json.dumps({"error": str(exc)}).encode()
+    return 200, "application/json", json.dumps(plan.as_json()).encode()
+
+
+_FORM = (("a", "PMD at a", "10GBASE-LR"), ("b", "PMD at b", "10GBASE-LR"),
+         ("length-km", "length km", "10"), ("fibre", "fibre", "OS2"),
+         ("connectors", "connector pairs", "2"), ("splices", "splices", "0"),
+         ("pad-a", "pad at a dB", "0"), ("pad-b", "pad at b dB", "0"))
+
+
+def budget_page(req: HttpRequest) -> Response:
+    """A small form and its answer; the query string is the whole state (shareable)."""
+    from lightwarden.rules.advice import LASER_CAUTION
+
+    given = {k.replace("_", "-"): v[-1] for k, v in req.query.items()}
+    fields = "".join(
+        f"<label>{escape(label)} <input name={name} value=\"{escape(given.get(name, dflt))}\">"
+        "</label> " for name, label, dflt in _FORM)
+    out = ["<!doctype html><html><head><meta charset=utf-8><title>power budget</title>"
+           "<style>body{font-family:sans-serif;margin:1em}label{margin-right:1em}"
+           "td,th{padding:2px 8px;text-align:right}.l{text-align:left}</style></head><body>"
+           "<h1>Will the link close?</h1>",
+           f"<form method=get action=/budget>{fields}<button>plan</button></form>"]
+    status = 200
+    if "a" in given:
+        try:
+            plan = _query_plan(req)
+        except _Refused as exc:
+            status = 400
+            out.append(f"<p><b>{escape(str(exc))}</b></p>")
+        else:
+            out.append(f"<p>engineered loss {plan.engineered_loss_db:.1f} dB; verdict "
+                       f"<b>{plan.verdict.value}</b> (<a href=\"/api/budget?"
+                       f"{escape(urlencode(given))}\">JSON</a>)</p>")
+            out.append("<table><tr><th class=l>direction</th><th>loss dB</th>"
+                       "<th>budget dB</th><th>Rx dBm</th><th>pad dB</th>"
+                       "<th class=l>verdict</th><th class=l>why</th></tr>")
+            for d in plan.directions:
+                out.append(
+                    f"<tr><td class=l>{d.from_end} &rarr; {d.to_end}</td>"
+                    f"<td>{d.loss_db:.1f}</td><td>{d.power_budget_db:.1f}</td>"
+                    f"<td>{d.rx_min_dbm:+.1f}..{d.rx_max_dbm:+.1f}</td>"
+                    f"<td>{'' if d.pad_db is None else f'{d.pad_db:g}'}</td>"
+                    f"<td class=l>{d.verdict.value}</td><td class=l>{escape(d.reason)}</td></tr>")
+            out.append("</table>")
+            out += [f"<p>note: {escape(n)}</p>" for n in plan.notes]
+            if any(d.pad_db for d in plan.directions):
+                out.append(f"<p>{escape(LASER_CAUTION)}</p>")
+    out.append("</body></html>")
+    return status, "text/html; charset=utf-8", "".join(out).encode()
+
+
+def mount(server: HttpServer) -> None:
+    server.add_route("/budget", budget_page)
+    server.add_route("/api/budget", budget_api)

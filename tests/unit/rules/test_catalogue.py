@@ -137,8 +137,8 @@ def test_derived_average_reproduces_the_oma_and_er_definitions(er_db):
 
 
 def test_oma_to_average_limits():
-    # Textbook limits of (r+1)/(2(r-1)): r -> infinity gives 1/2 (-3.010 dB below... i.e.
-    # P_avg = OMA/2); ER 3.0 dB gives +1.775 dB; ER 9 dB gives -1.911 dB (computed).
+    # Limits of (r+1)/(2(r-1)) (computed by hand): r -> infinity gives 1/2, i.e.
+    # P_avg = OMA/2 = OMA - 3.010 dB; ER 3.0 dB gives +1.775 dB; ER 9 dB gives -1.911 dB.
     def derived(er):
         return PmdSpec("X", "", None, None, None, 1, None, None, None, None, "t",
                        rx_sens_oma_dbm=0.0, er_min_db=er).rx_sens_avg_from_oma_dbm
@@ -154,9 +154,9 @@ def test_oma_columns_agree_with_the_average_columns():
     # Physics, not a table: any two-level signal has P_avg >= OMA/2 (r -> infinity), so
     # a row's minimum average launch / receive power can never sit more than 3.01 dB
     # below its OMA minimum; and at the minimum ER a compliant part needs at least the
-    # derived average. IEEE 802.3 sets the informative average minima at the OMA/2 limit
-    # for cl.52 (common knowledge of the tables, from memory), so LR/SR/ER land within
-    # 0.02 dB of it. A typo in an OMA cell breaks this.
+    # derived average. IEEE 802.3 cl.52 puts its informative minimum average launch
+    # powers at the OMA/2 limit (from memory: -5.2 dBm OMA -> -8.2 dBm for LR), so
+    # LR/SR/ER Tx land within 0.02 dB of it. A typo in an OMA cell breaks this.
     rows = [s for s in CAT if s.tx_oma_min_dbm is not None or s.rx_sens_oma_dbm is not None]
     assert len(rows) >= 8
     for s in rows:

@@ -25,6 +25,8 @@ from dataclasses import dataclass
 from functools import cache
 from importlib import resources
 
+from lightwarden.collector import units
+
 CATALOGUE_FILE = "pmd_catalogue.csv"
 
 COLUMNS = (
@@ -105,16 +107,12 @@ ALSO_RUNS_ON: dict[str, tuple[str, str]] = {
                            "(from memory)"),
 }
 
+class CatalogueError(ValueError):
+    """A PMD table (shipped or site-supplied) has a bad row; the message names where."""
+
+
 _BREAKOUT = re.compile(r"^\s*(\d{1,2})\s*[xX]\s*(.+?)\s*$")
 _GRADE = re.compile(r"^OM([1-5])$")
-
-
-def db_to_ratio(db: float) -> float:
-    return float(10.0 ** (db / 10.0))
-
-
-def mw_to_dbm(mw: float) -> float:
-    return 10.0 * math.log10(mw)
 
 
 def avg_from_oma_mw(oma_mw: float, er_db: float) -> float:
@@ -123,13 +121,13 @@ def avg_from_oma_mw(oma_mw: float, er_db: float) -> float:
     P_avg = (P1 + P0) / 2 = OMA * (r + 1) / (2 (r - 1))."""
     if not er_db > 0.0 or not math.isfinite(er_db):
         raise ValueError(f"extinction ratio {er_db!r} dB must be a finite number above 0")
-    r = db_to_ratio(er_db)
+    r = math.pow(10.0, er_db / 10.0)  # a ratio of powers, not a power: no unit helper
     return oma_mw * (r + 1.0) / (2.0 * (r - 1.0))
 
 
 def avg_from_oma_dbm(oma_dbm: float, er_db: float) -> float:
     """:func:`avg_from_oma_mw` in dBm: the OMA level plus 10 log10((r+1) / (2 (r-1)))."""
-    return mw_to_dbm(avg_from_oma_mw(db_to_ratio(oma_dbm), er_db))
+    return units.mw_to_dbm(avg_from_oma_mw(units.dbm_to_mw(oma_dbm), er_db))
 
 
 def fibre_kind(text: str) -> str | None:
@@ -422,10 +420,6 @@ def _parse_float(text: str, where: str) -> float | None:
     if not math.isfinite(value):
         raise CatalogueError(f"{where}: {text!r} is not a finite number")
     return value
-
-
-class CatalogueError(ValueError):
-    """A PMD table (shipped or site-supplied) has a bad row; the message names where."""
 
 
 def parse_catalogue(text: str, origin: str = CATALOGUE_FILE) -> list[PmdSpec]:

@@ -189,7 +189,7 @@ def test_missing_bias_sensor_is_unknown(run):
 
 
 def test_hover_never_flaps_faster_than_the_hold(run):
-    """hover story: Rx swings around the 3 dB margin target above the module's low alarm."""
+    """hover story: Rx swings around the 3 dB margin target above the standard's sensitivity."""
     _, scrapes, _ = run
     seen: list[tuple[float, str]] = []  # (poll time of qm-core-b, condition)
     for s in scrapes:

@@ -389,9 +389,9 @@ def _module_flags(
         current = Condition(int(judged[0][r]))
         if only_if_milder and current.severity >= condition.severity:
             return
-        if current in (Condition.LASER_OFF, Condition.DARK) and condition is not \
-                Condition.NOT_READY:
-            return  # no light at all already says more than the flag
+        if current in (Condition.LASER_OFF, Condition.DARK) and condition not in (
+                Condition.NOT_READY, Condition.TX_FAULT):
+            return  # no light at all already says more than the flag (TX_FAULT says why)
         for arr in judged:
             arr[r] = condition
         if condition in (Condition.TX_FAULT, Condition.LOSS_OF_SIGNAL, Condition.NOT_READY):

@@ -170,6 +170,26 @@ def test_adhoc_check_by_host_and_community(lab_process):
     assert LAB_COMMUNITY not in res2.stdout + res2.stderr
 
 
+def test_adhoc_check_reads_maps_and_agrees_with_the_configured_check(lab_process):
+    # Ad hoc and configured checks of the same device agree once both read module maps:
+    # the module's own levels (here the TK-10GER-40's high alarm in lab.yaml) and its
+    # flags come from the map, not from the ENTITY-MIB sensors alone.
+    base, endpoints, tmp = lab_process
+    oid = "1.3.6.1.4.1.32473.7.1.1"  # the lab's map column (fixtures/lab/snmp_agent.py)
+    res = lightwarden("check", f"127.0.0.1:{base}", "--community-env", "LW_LAB_COMMUNITY",
+                      "--eeprom-oid", oid, "--json", env=LAB_ENV)
+    assert res.returncode == 1, res.stderr
+    adhoc = {(r["port"], r["lane"]): r for r in json.loads(res.stdout)}
+    site = _site(tmp, endpoints, "one.yaml", devices=["qm-core-a"])
+    configured = {(r["port"], r["lane"]): r for r in json.loads(
+        lightwarden("check", "-c", str(site), "--json", env=LAB_ENV).stdout)}
+    assert adhoc.keys() == configured.keys()
+    for key, row in configured.items():
+        assert adhoc[key]["condition"] == row["condition"], key
+        assert adhoc[key]["rx_edges"] == row["rx_edges"], key
+    assert adhoc[("sfp31", 1)]["rx_edges"]["high_alarm"]["source"] == "module"
+
+
 def test_check_collection_error_exits_2_and_names_device(tmp_path: Path):
     with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
         s.bind(("127.0.0.1", 0))

@@ -72,3 +72,15 @@ def test_a_dark_receiver_with_a_lit_far_end_names_it_and_its_launch(tmp_path: Pa
     # The far device not polled yet: the far end is named from the plant record.
     assert "qm-core-a sfp20" in dark.advice
     monitor.close()
+
+
+def test_generator_url_links_each_alert_to_its_optic():
+    from support.alert_helpers import make_event
+
+    from lightwarden.exporters.alerts.alertmanager import to_alertmanager
+
+    ev = make_event("open", 1)
+    doc = to_alertmanager(ev, ev.at, generator_url="http://qm-mon-a:9817/optic/{device}/{port}"
+                          "?lane={lane}")
+    assert doc["generatorURL"] == (f"http://qm-mon-a:9817/optic/{ev.device}/"
+                                   f"{ev.port.replace('/', '%2F')}?lane={ev.lane}")

@@ -220,6 +220,7 @@ def assess(
     table = np.array([w.edges for w in windows], dtype=np.float64).reshape(-1, 6)
     src6 = np.array([[int(x) for x in w.sources] for w in windows], dtype=np.int8).reshape(-1, 6)
     src_table = np.array([int(w.source) for w in windows], dtype=np.int8)
+    oma_table = np.array([w.oma_equivalent_dbm for w in windows], dtype=np.float64)
     edges = table[row_win] if n else np.zeros((0, 6))
     edge_sources = src6[row_win] if n else np.zeros((0, 6), dtype=np.int8)
     source = src_table[row_win] if n else np.empty(0, dtype=np.int8)
@@ -308,6 +309,7 @@ def assess(
         edge_source=edge_source,
         edge_margin_db=edge_margin,
         cause=cause,
+        oma_equivalent_dbm=oma_table[row_win] if n else np.zeros(0),
     )
 
 

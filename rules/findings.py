@@ -245,6 +245,8 @@ class Assessment:
     edge_source: np.ndarray | None = None  # int8 (WindowSource)
     edge_margin_db: np.ndarray | None = None  # float64, power rows
     cause: dict[int, str] = field(default_factory=dict)
+    #: Rx rows: the standard's OMA sensitivity as average power (derived, never judged)
+    oma_equivalent_dbm: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         # Assessments built by hand (tests, benchmarks) give only the margin edges; fill

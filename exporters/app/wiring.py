@@ -156,6 +156,16 @@ def make_sources(cfg: SiteConfig, base_dir: Path, catalogue: Catalogue,
     return build_sources(cfg, my_devices(cfg), ctx)
 
 
+def fibre_of(cfg: SiteConfig) -> dict[tuple[str, str], str]:
+    """The plant's fibre at each recorded port: which row of a PMD judges its optic."""
+    out: dict[tuple[str, str], str] = {}
+    for sp in cfg.plant:
+        for end in (sp.a, sp.b):
+            device, port = end.split()
+            out[(device, port)] = sp.fibre
+    return out
+
+
 def build_monitor(
     cfg: SiteConfig,
     *,
@@ -172,7 +182,7 @@ def build_monitor(
     parts = MonitorParts(
         site=cfg.site,
         catalogue=catalogue,
-        resolver=WindowResolver(catalogue, build_overrides(cfg)),
+        resolver=WindowResolver(catalogue, build_overrides(cfg), fibre_of=fibre_of(cfg)),
         targets=targets,
         tracker=ConditionTracker(hysteresis_policy(cfg)),
         lifecycle=lifecycle or AlertLifecycle(lifecycle_config(cfg, targets)),

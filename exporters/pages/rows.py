@@ -203,6 +203,10 @@ def _fold(row: OpticRow, a: Assessment, i: int) -> None:
                                     a.edge_sources[i].tolist(), strict=True)
             if not math.isnan(v)
         }
+        if a.oma_equivalent_dbm is not None and not math.isnan(a.oma_equivalent_dbm[i]):
+            # beside the judged edges, marked derived: never an edge (rules/catalogue.py)
+            row.rx_edges["sensitivity_from_oma"] = {
+                "value": float(a.oma_equivalent_dbm[i]), "source": "standard, derived"}
         row.rx_overload_dbm = _num(float(a.high_edge[i]))
         row.rx_sensitivity_dbm = _num(float(a.low_edge[i]))
         row.margin_to_overload_db = _num(float(a.margin_high_db[i]))

@@ -51,6 +51,8 @@ COLUMNS = (
     "rx_sens_oma_dbm",
     "er_min_db",
     "oma_clause",
+    "lane_spread_tx_db",
+    "lane_spread_rx_db",
 )
 _REQUIRED = ("name", "rx_overload_dbm", "rx_min_avg_dbm", "source")
 _FLOAT_COLUMNS = (
@@ -69,6 +71,8 @@ _FLOAT_COLUMNS = (
     "tx_oma_min_dbm",
     "rx_sens_oma_dbm",
     "er_min_db",
+    "lane_spread_tx_db",
+    "lane_spread_rx_db",
 )
 _LENGTH_COLUMNS = (
     "reach_m", "reach_om1_m", "reach_om2_m", "reach_om3_m", "reach_om4_m",
@@ -176,6 +180,10 @@ class PmdSpec:
     rx_sens_oma_dbm: float | None = None
     er_min_db: float | None = None
     oma_clause: str = ""
+    #: The most two lanes of a multi-lane PMD may differ by, Tx launch and Rx power, dB
+    #: (the standard states them in OMA; the readings are average power)
+    lane_spread_tx_db: float | None = None
+    lane_spread_rx_db: float | None = None
 
     @property
     def power_budget_db(self) -> float | None:

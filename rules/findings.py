@@ -43,6 +43,7 @@ class Condition(IntEnum):
     NOT_READY = 13  # a CMIS module that is not in its ready state
     LATCHED_ALARM = 14  # the module latched an alarm flag since it was last read
     LATCHED_WARNING = 15  # the module latched a warning flag since it was last read
+    LANE_IMBALANCE = 16  # lanes of one optic differ by more than the standard allows
 
     @property
     def word(self) -> str:
@@ -115,6 +116,7 @@ _SEVERITY = {
     Condition.NOT_READY: Severity.WARNING,
     Condition.LATCHED_ALARM: Severity.WARNING,
     Condition.LATCHED_WARNING: Severity.INFO,
+    Condition.LANE_IMBALANCE: Severity.WARNING,
 }
 
 #: severity per condition code, for vectorised sorting and "which rows may alert";

@@ -335,4 +335,14 @@ class Monitor:
             self.build_sources()
         now = self.clock()
         outcomes = await asyncio.gather(*(s.poll(now) for s in self.sources))
-        return [self.handle(o) for o in outcomes]
+        views = [self.handle(o) for o in outcomes]
+        # One sweep sees every device at once: a receiver handled before its far end's
+        # device learns its cause (and the far end's readings) on a second look.
+        for n, view in enumerate(views):
+            if view.assessment is not None:
+                far = self._far_ends(view.assessment)
+                if far:
+                    merged = {**view.contexts, **far}
+                    views[n] = self._views[view.outcome.device] = DeviceView(
+                        view.outcome, view.assessment, merged)
+        return views

@@ -159,7 +159,14 @@ def test_check_json_has_every_optic_and_lane_worst_first(lab_process):
     assert any("TX_FAULT" in n for n in fault["notes"])
     far = by_port[("qm-core-a", "sfp27", 1)]
     assert (far["condition"], far["cause"]) == ("dark", "qm-core-b|sfp27|1|tx_power")
-    # dark_port: this end's laser is off (bias 0 mA), the far receiver caused by it
+    # every lane with a far end in the plant carries its span, measured both ways and as
+    # engineered (span loss = Tx at one end - Rx at the other: standards.md, practice)
+    spans = [r for r in rows if r["span"]]
+    assert len(spans) >= 150
+    lit = by_port[("qm-core-a", "sfp31", 1)]["span"]
+    assert lit["far"] == "qm-core-b sfp31"
+    assert lit["loss_in_db"] > 0 and lit["loss_out_db"] > 0 and lit["engineered_db"] > 0
+        # dark_port: this end's laser is off (bias 0 mA), the far receiver caused by it
     assert by_port[("qm-core-a", "sfp20", 1)]["condition"] == "laser_off"
     assert by_port[("qm-dist-b", "sfp20", 1)]["cause"] == "qm-core-a|sfp20|1|tx_power"
 

@@ -27,12 +27,13 @@ from lightwarden.exporters.store.history import History, HistoryError
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets, assess
 from lightwarden.rules.catalogue import Catalogue
+from lightwarden.rules.consistency import Finding, consistency
 from lightwarden.rules.findings import SEVERITY_OF, AlertEvent, Assessment, Severity, WindowSource
 from lightwarden.rules.hysteresis import ConditionTracker
 from lightwarden.rules.lifecycle import AlertLifecycle
+from lightwarden.rules.link_alerts import LinkAlerts
 from lightwarden.rules.outlook import RxWindow
 from lightwarden.rules.plant import Plant
-from lightwarden.rules.spanloss import LinkIssue, check_link
 from lightwarden.rules.windows import WindowResolver
 
 log = logging.getLogger("lightwarden.monitor")
@@ -81,6 +82,12 @@ class Monitor:
         self._views: dict[str, DeviceView] = {}
         self._alerts_enabled = alerts
         self.exposition.set_alert_source(self.lifecycle.open_alerts)
+        # Consistency: each port's latest identity (kept while its device is silent, so a
+        # missed poll resolves nothing), the findings now present, and their alerts.
+        self.link_alerts = LinkAlerts()
+        self._identities: dict[tuple[str, str], OpticIdentity] = {}
+        self._findings: dict[str, Finding] = {}
+        self.exposition.set_link_source(self.link_issues)
 
     # -- the read-only view the pages take (pages.view.MonitorView) -------------------
     @property
@@ -100,7 +107,8 @@ class Monitor:
         return self._views
 
     def open_alerts(self) -> list[AlertEvent]:
-        return self.lifecycle.open_alerts()
+        """Open reading alerts, then open link-finding alerts."""
+        return self.lifecycle.open_alerts() + self.link_alerts.open_alerts()
 
     def plant_with_history(self) -> Plant:
         """The plant, with span wavelengths taken from the PMDs the history has seen."""
@@ -109,21 +117,28 @@ class Monitor:
         pmd_of = {(w.device, w.port): w.pmd for w in self.history.rx_windows()}
         return self.parts.plant_with(pmd_of)
 
-    def link_issues(self) -> list[LinkIssue]:
-        """Spans in the plant record whose two ends do not belong together (wrong PMD,
-        wavelength, or BiDi pairing), from the latest identity of each end."""
-        optics: dict[tuple[str, str], OpticIdentity] = {}
-        for view in self._views.values():
-            if view.outcome.batch is not None:
-                for o in view.outcome.batch.optics:
-                    optics[(o.device, o.port)] = o
-        issues: list[LinkIssue] = []
-        for sp in self.plant.spans:
-            a = optics.get((sp.a_device, sp.a_port))
-            b = optics.get((sp.b_device, sp.b_port))
-            if a is not None and b is not None:
-                issues.extend(check_link(a, b))
-        return issues
+    def link_issues(self) -> list[Finding]:
+        """Consistency findings now present (rules/consistency.py), worst first."""
+        found = list(self._findings.values())
+        found.sort(key=lambda f: (-f.severity, f.key))
+        return found
+
+    def _check_links(self, outcome: PollOutcome, now: float) -> list[AlertEvent]:
+        """Re-check the ports and spans of a device just polled; their alert events."""
+        batch, device = outcome.batch, outcome.device
+        if batch is None:
+            return []  # no evidence either way
+        for key in [k for k in self._identities if k[0] == device]:
+            del self._identities[key]
+        for o in batch.optics:
+            self._identities[(o.device, o.port)] = o
+        found = consistency(self.plant, self._identities, self.catalogue, devices={device})
+        for fkey in [k for k, f in self._findings.items() if f.involves(device)]:
+            del self._findings[fkey]
+        self._findings.update((f.key, f) for f in found)
+        if not self._alerts_enabled:
+            return []
+        return self.link_alerts.observe(found, {device}, now)
 
     # -- setup and teardown -----------------------------------------------------------
     def build_sources(self) -> list[PollSource]:
@@ -161,6 +176,7 @@ class Monitor:
                 events = self.lifecycle.observe(assessment, now, self._context(assessment, now))
         elif self._alerts_enabled:
             events = self.lifecycle.mark_stale(outcome.device, now)
+        events += self._check_links(outcome, now)
         self.exposition.update(outcome, assessment)
         view = self._views[outcome.device] = DeviceView(outcome, assessment)
         if events and self.alert_sink is not None:

@@ -9,9 +9,9 @@ from typing import Protocol
 from lightwarden.collector.readings import PollOutcome
 from lightwarden.exporters.store.history import History
 from lightwarden.rules.assess import MarginTargets
+from lightwarden.rules.consistency import Finding
 from lightwarden.rules.findings import AlertEvent, Assessment
 from lightwarden.rules.plant import Plant
-from lightwarden.rules.spanloss import LinkIssue
 
 
 @dataclass(slots=True)
@@ -33,5 +33,5 @@ class MonitorView(Protocol):
     def views(self) -> Mapping[str, DeviceView]: ...
 
     def open_alerts(self) -> list[AlertEvent]: ...
-    def link_issues(self) -> list[LinkIssue]: ...
+    def link_issues(self) -> list[Finding]: ...
     def plant_with_history(self) -> Plant: ...

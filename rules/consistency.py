@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import math
 import re
-from collections.abc import Collection, Iterable, Mapping
+from collections.abc import Callable, Collection, Iterable, Mapping
 from dataclasses import dataclass
 from enum import StrEnum
 
@@ -461,21 +461,39 @@ def _reach_m(pmd: str, span: PlantSpan, plant_kind: str,
     return spec.reach_m, f"reach, {clause}"
 
 
-def consistency(plant: Plant, optics: Mapping[PortRef, OpticIdentity], catalogue: Catalogue,
-                *, devices: Collection[str] | None = None) -> list[Finding]:
-    """Every finding over the plant and the optics seen, or only those involving
-    ``devices`` (a poll of one device re-checks its own ports and spans)."""
+def check_spans(spans: Iterable[PlantSpan], identity: Callable[[str, str], OpticIdentity | None],
+                catalogue: Catalogue) -> list[Finding]:
+    """Pair and plant checks of some spans, each end's optic from ``identity``."""
     out: list[Finding] = []
-    for (device, _port), optic in sorted(optics.items()):
-        if devices is None or device in devices:
-            out += check_optic(optic, catalogue)
-    for span in plant.spans:
-        if devices is not None and span.a_device not in devices \
-                and span.b_device not in devices:
-            continue
-        a = optics.get((span.a_device, span.a_port))
-        b = optics.get((span.b_device, span.b_port))
+    for span in spans:
+        a = identity(span.a_device, span.a_port)
+        b = identity(span.b_device, span.b_port)
         if a is not None and b is not None:
             out += check_pair(span, a, b)
         out += check_plant(span, [o for o in (a, b) if o is not None], catalogue)
     return out
+
+
+def spans_by_device(plant: Plant) -> dict[str, list[PlantSpan]]:
+    """Each device's spans (a span between two devices is listed under both), so one
+    device's poll re-checks its own spans without walking the whole plant."""
+    out: dict[str, list[PlantSpan]] = {}
+    for span in plant.spans:
+        out.setdefault(span.a_device, []).append(span)
+        if span.b_device != span.a_device:
+            out.setdefault(span.b_device, []).append(span)
+    return out
+
+
+def consistency(plant: Plant, optics: Mapping[PortRef, OpticIdentity], catalogue: Catalogue,
+                *, devices: Collection[str] | None = None) -> list[Finding]:
+    """Every finding over the plant and the optics seen, or only those involving
+    ``devices``. A running monitor calls ``check_optic`` and ``check_spans`` per device
+    with its own indexes instead (this walks everything)."""
+    out: list[Finding] = []
+    for (device, _port), optic in sorted(optics.items()):
+        if devices is None or device in devices:
+            out += check_optic(optic, catalogue)
+    spans = [sp for sp in plant.spans if devices is None
+             or sp.a_device in devices or sp.b_device in devices]
+    return out + check_spans(spans, lambda d, p: optics.get((d, p)), catalogue)

@@ -15,6 +15,7 @@ from collections.abc import Collection, Iterable, Mapping
 from dataclasses import dataclass, field, replace
 from typing import Any
 
+from lightwarden.rules.advice import LASER_CAUTION
 from lightwarden.rules.consistency import ALERTNAME, Finding, Mismatch
 from lightwarden.rules.event_codec import event_from_dict, event_to_dict
 from lightwarden.rules.findings import AlertEvent, AlertKind, WindowSource
@@ -27,7 +28,8 @@ def finding_event(f: Finding, kind: AlertKind, sequence: int, starts_at: float,
         severity=f.severity.alert, device=f.device, port=f.port, lane=0, quantity=None,
         condition=None, value=None, unit="", edge_name="", edge_value=None,
         window_source=WindowSource.NONE, margin_db=None, rate_per_day=None, summary=f.text,
-        advice=f.advice, caution="", starts_at=starts_at, at=now, finding=f.kind.value,
+        # Every finding's advice means fitting or swapping optics, or re-patching.
+        advice=f.advice, caution=LASER_CAUTION, starts_at=starts_at, at=now, finding=f.kind.value,
         far_device=f.far_device, far_port=f.far_port,
     )
 
@@ -70,7 +72,8 @@ class LinkAlerts:
             del self.open[key]
             events.append(replace(
                 last, kind=AlertKind.RESOLVE, sequence=self._next(key),
-                summary=f"Resolved: {last.summary}", advice="", ends_at=now, at=now))
+                summary=f"Resolved: {last.summary}", advice="", caution="", ends_at=now,
+                at=now))
         return events
 
     def open_alerts(self) -> list[AlertEvent]:

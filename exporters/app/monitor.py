@@ -27,7 +27,7 @@ from lightwarden.exporters.store.history import History, HistoryError
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets, assess
 from lightwarden.rules.catalogue import Catalogue
-from lightwarden.rules.consistency import Finding, consistency
+from lightwarden.rules.consistency import Finding, check_optic, check_spans, spans_by_device
 from lightwarden.rules.findings import SEVERITY_OF, AlertEvent, Assessment, Severity, WindowSource
 from lightwarden.rules.hysteresis import ConditionTracker
 from lightwarden.rules.lifecycle import AlertLifecycle
@@ -85,7 +85,8 @@ class Monitor:
         # Consistency: each port's latest identity (kept while its device is silent, so a
         # missed poll resolves nothing), the findings now present, and their alerts.
         self.link_alerts = LinkAlerts()
-        self._identities: dict[tuple[str, str], OpticIdentity] = {}
+        self._identities: dict[str, dict[str, OpticIdentity]] = {}  # device -> port -> id
+        self._spans_of = spans_by_device(self.plant)
         self._findings: dict[str, Finding] = {}
         self.exposition.set_link_source(self.link_issues)
 
@@ -123,16 +124,17 @@ class Monitor:
         found.sort(key=lambda f: (-f.severity, f.key))
         return found
 
+    def _identity(self, device: str, port: str) -> OpticIdentity | None:
+        return self._identities.get(device, {}).get(port)
+
     def _check_links(self, outcome: PollOutcome, now: float) -> list[AlertEvent]:
         """Re-check the ports and spans of a device just polled; their alert events."""
         batch, device = outcome.batch, outcome.device
         if batch is None:
             return []  # no evidence either way
-        for key in [k for k in self._identities if k[0] == device]:
-            del self._identities[key]
-        for o in batch.optics:
-            self._identities[(o.device, o.port)] = o
-        found = consistency(self.plant, self._identities, self.catalogue, devices={device})
+        own = self._identities[device] = {o.port: o for o in batch.optics}
+        found = [f for o in own.values() for f in check_optic(o, self.catalogue)]
+        found += check_spans(self._spans_of.get(device, ()), self._identity, self.catalogue)
         for fkey in [k for k, f in self._findings.items() if f.involves(device)]:
             del self._findings[fkey]
         self._findings.update((f.key, f) for f in found)

@@ -164,7 +164,7 @@ def finding_json(f: Finding) -> dict[str, object]:
     """One consistency finding as the JSON API and `check --json` show it."""
     return {"kind": f.kind.value, "severity": f.severity.word, "device": f.device,
             "port": f.port, "far_device": f.far_device, "far_port": f.far_port,
-            "text": f.text, "advice": f.advice}
+            "text": f.text, "advice": f.advice, "caution": LASER_CAUTION}
 
 
 def _where(a: AlertEvent) -> str:

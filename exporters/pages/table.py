@@ -5,6 +5,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 from lightwarden.exporters.pages.rows import OpticRow
+from lightwarden.rules.advice import LASER_CAUTION
 from lightwarden.rules.consistency import Finding
 
 
@@ -38,11 +39,13 @@ def render_check_table(rows: list[OpticRow], failures: list[dict[str, object]],
             out += [f"  {lf.severity.word:<8} {lf.kind.value}: {lf.text}",
                     f"           {lf.advice}"]
     advised = [r for r in rows if r.advice]
+    caution = next((r.caution for r in advised if r.caution), "")
+    if links and not caution:
+        caution = LASER_CAUTION  # the findings' advice means fitting or swapping optics
     if advised:
         out += ["", "What to do:"]
         out += [f"  {r.device} {r.port} lane {r.lane} ({r.condition}): {r.advice}"
                 for r in advised]
-        caution = next((r.caution for r in advised if r.caution), "")
-        if caution:
-            out += ["", caution]
+    if caution:
+        out += ["", caution]
     return "\n".join(out)

@@ -255,6 +255,7 @@ def build_rules(p: RuleParams) -> dict[str, Any]:
                 "reach); the status page and `lightwarden check` give the numbers.",
                 "advice": "Check the part numbers at both ends against the plant record and "
                 "the optics' datasheets, then fit matching optics or correct the record.",
+                "caution": LASER_CAUTION,
             },
         },
     ]

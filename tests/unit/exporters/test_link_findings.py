@@ -18,6 +18,7 @@ from lightwarden.exporters.alerts.outbox import Outbox
 from lightwarden.exporters.pages.status import StatusPage
 from lightwarden.exporters.prometheus.alert_rules import RuleParams, build_rules
 from lightwarden.exporters.prometheus.exposition import Exposition, render_links
+from lightwarden.rules.advice import LASER_CAUTION
 from lightwarden.rules.assess import MarginTargets
 from lightwarden.rules.consistency import ALERTNAME, Finding, Mismatch
 from lightwarden.rules.event_codec import event_from_dict, event_to_dict
@@ -41,6 +42,7 @@ def test_finding_opens_once_updates_on_change_and_resolves_when_gone():
     assert (op.kind, op.alertname, op.severity, op.sequence) == (
         AlertKind.OPEN, ALERTNAME, AlertSeverity.WARNING, 1)
     assert op.quantity is None and op.condition is None and op.finding == "bidi-not-complementary"
+    assert op.caution == LASER_CAUTION  # the advice means handling optics
     assert la.observe([_f()], {"qm-b"}, T0 + 60) == []  # unchanged: nothing to send
     (up,) = la.observe([_f(severity=Severity.CRITICAL)], {"qm-a"}, T0 + 120)
     assert (up.kind, up.severity, up.starts_at, up.sequence) == (
@@ -131,7 +133,8 @@ def test_status_page_and_api_show_findings_and_their_alerts():
     assert doc["links"] == [{"kind": "bidi-not-complementary", "severity": "warning",
                              "device": "qm-a", "port": "sfp1", "far_device": "qm-b",
                              "far_port": "sfp1", "text": _f().text,
-                             "advice": "Fit the matching other half."}]
+                             "advice": "Fit the matching other half.",
+                             "caution": LASER_CAUTION}]
     (alert,) = doc["alerts"]
     assert (alert["alertname"], alert["kind"], alert["quantity"]) == (
         ALERTNAME, "bidi-not-complementary", "")

@@ -16,10 +16,12 @@ from lightwarden.rules.consistency import (
     check_optic,
     check_pair,
     check_plant,
+    check_spans,
     consistency,
     cwdm_channel,
     dwdm_channel,
     dwdm_frequency_thz,
+    spans_by_device,
 )
 from lightwarden.rules.findings import Severity
 from lightwarden.rules.plant import Plant
@@ -259,3 +261,15 @@ def test_consistency_over_the_plant_and_per_device():
     assert only_b[0].involves("qm-b") and not only_b[0].involves("qm-c")
     # Only one end known: plant checks still run, pairing checks wait.
     assert consistency(plant, {("qm-d", "sfp1"): optics[("qm-d", "sfp1")]}, CAT) == []
+
+
+def test_spans_indexed_by_device_give_the_same_findings():
+    spans = [PlantSpan("qm-a", "sfp1", "qm-b", "sfp1", 2.0, "OS2", 1310.0),
+             PlantSpan("qm-b", "sfp2", "qm-c", "sfp2", 2.0, "OM4", 850.0)]
+    plant = Plant(spans, {})
+    index = spans_by_device(plant)
+    assert [len(index[d]) for d in ("qm-a", "qm-b", "qm-c")] == [1, 2, 1]
+    optics = {("qm-b", "sfp2"): _o("qm-b", "10GBASE-LR", 1310, port="sfp2")}
+    by_index = check_spans(index["qm-c"], lambda d, p: optics.get((d, p)), CAT)
+    assert by_index == consistency(plant, optics, CAT, devices={"qm-c"})
+    assert [f.kind for f in by_index] == [Mismatch.FIBRE_TYPE]

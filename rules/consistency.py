@@ -31,6 +31,7 @@ import re
 from collections.abc import Callable, Collection, Iterable, Mapping
 from dataclasses import dataclass
 from enum import StrEnum
+from functools import lru_cache
 
 from lightwarden.collector.readings import OpticIdentity
 from lightwarden.rules.catalogue import Catalogue, PmdSpec
@@ -150,18 +151,38 @@ _BREAKOUT = re.compile(r"^\d+X(?=\d)", re.IGNORECASE)  # "4x10GBASE-SR" -> "10GB
 _DUAL_WAVELENGTH = re.compile(r"SR\d*\.2\b", re.IGNORECASE)
 
 
+@dataclass(slots=True, frozen=True)
+class _Facts:
+    """What the checks read from one identity, worked out once per distinct part."""
+
+    bidi: bool
+    dual: bool
+    base: str
+    fibre: str | None
+
+
+@lru_cache(maxsize=4096)  # a fleet holds few distinct (PMD, wavelength, part) triples
+def _facts(pmd: str, nm: float | None, part_number: str) -> _Facts:
+    bidi = bool(_BIDI_PMD.search(pmd) or "BIDI" in part_number.upper())
+    dual = bool(_DUAL_WAVELENGTH.search(pmd)) or (
+        bidi and nm is not None and nm < SHORT_WAVE_MAX_NM)
+    base = base_pmd(pmd)
+    return _Facts(bidi, dual, base, _fibre_kind(base, nm))
+
+
+def _of(optic: OpticIdentity) -> _Facts:
+    return _facts(optic.pmd, optic.wavelength_nm, optic.part_number)
+
+
 def is_bidi(optic: OpticIdentity) -> bool:
     """A BiDi part by its PMD name or part number ("-BX10", "-BR20", "BIDI")."""
-    return bool(_BIDI_PMD.search(optic.pmd) or "BIDI" in optic.part_number.upper())
+    return _of(optic).bidi
 
 
 def is_dual_wavelength_duplex(optic: OpticIdentity) -> bool:
     """A short-reach "BiDi" that sends two short-wave wavelengths over each fibre of a
     duplex pair (e.g. 850/900 nm 40G parts): identical at both ends, not a pair."""
-    nm = optic.wavelength_nm
-    if _DUAL_WAVELENGTH.search(optic.pmd):
-        return True
-    return is_bidi(optic) and nm is not None and nm < SHORT_WAVE_MAX_NM
+    return _of(optic).dual
 
 
 def bidi_complementary(w1: float, w2: float,
@@ -201,7 +222,10 @@ def base_pmd(pmd: str) -> str:
 def fibre_kind(optic: OpticIdentity) -> str | None:
     """Which fibre the optic is made for: SM, MM, EITHER (LRM), LX (SM, or MM with a
     mode-conditioning cord), or None when nothing says."""
-    pmd = base_pmd(optic.pmd)
+    return _of(optic).fibre
+
+
+def _fibre_kind(pmd: str, nm: float | None) -> str | None:
     if "LRM" in pmd:
         return EITHER  # made for multimode; many parts also state single-mode (practice)
     if pmd == "1000BASE-LX":
@@ -210,7 +234,6 @@ def fibre_kind(optic: OpticIdentity) -> str | None:
         return MM
     if _SINGLEMODE_PMD.search(pmd):
         return SM
-    nm = optic.wavelength_nm
     if nm is None:
         return None
     return MM if nm < SHORT_WAVE_MAX_NM else SM
@@ -259,9 +282,10 @@ def check_optic(optic: OpticIdentity, catalogue: Catalogue) -> list[Finding]:
     BiDi parts are left to the pairing check: their band depends on which side they are.
     """
     nm = optic.wavelength_nm
-    if nm is None or not optic.pmd or is_bidi(optic):
+    facts = _of(optic)
+    if nm is None or not optic.pmd or facts.bidi:
         return []
-    spec = catalogue.lookup(base_pmd(optic.pmd))
+    spec = catalogue.lookup(facts.base)
     band = _band(spec)
     if spec is None or band is None:
         return []
@@ -296,15 +320,15 @@ def _finding(span: PlantSpan, kind: Mismatch, severity: Severity, text: str,
 def check_pair(span: PlantSpan, a: OpticIdentity, b: OpticIdentity) -> list[Finding]:
     """Do the optics at the two ends of one span belong together (PMD and wavelength)?"""
     out: list[Finding] = []
-    bidi_a, bidi_b = is_bidi(a), is_bidi(b)
-    dual = is_dual_wavelength_duplex(a) and is_dual_wavelength_duplex(b)
+    fa, fb = _of(a), _of(b)
+    bidi_a, bidi_b = fa.bidi, fb.bidi
+    dual = fa.dual and fb.dual
     single_fibre = bidi_a and bidi_b and not dual
     wa, wb = a.wavelength_nm, b.wavelength_nm
-    pmd_differs = bool(a.pmd and b.pmd) and base_pmd(a.pmd) != base_pmd(b.pmd)
+    pmd_differs = bool(a.pmd and b.pmd) and fa.base != fb.base
     if pmd_differs:
         waves = f" at {_nm(wa)} and {_nm(wb)}" if wa is not None and wb is not None else ""
-        if bidi_a != bidi_b and not (is_dual_wavelength_duplex(a) or
-                                     is_dual_wavelength_duplex(b)):
+        if bidi_a != bidi_b and not (fa.dual or fb.dual):
             severity, why = Severity.CRITICAL, (
                 "; one end is a single-fibre BiDi part, the other a duplex part, so they "
                 "cannot link")
@@ -405,7 +429,7 @@ def check_plant(span: PlantSpan, ends: Iterable[OpticIdentity],
         if kind in (SM, MM) and kind != plant_kind:
             wrong.append(f"{_end(o)} {o.pmd or _nm(o.wavelength_nm or 0.0)} is {kind}")
             continue
-        pmd = base_pmd(o.pmd)
+        pmd = _of(o).base
         if not pmd or pmd in seen:
             continue
         seen.add(pmd)

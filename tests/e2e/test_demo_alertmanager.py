@@ -19,6 +19,7 @@ from collections import defaultdict
 import pytest
 from support.alert_helpers import Receiver
 from support.demo import DemoProc
+from support.lab_findings import LAB_FINDINGS, label_tuple
 from support.procs import (
     ALERTMANAGER_CONFIG,
     LOOPBACK,
@@ -173,28 +174,17 @@ def test_link_findings_reach_alertmanager_with_the_rule_labels(setup):
     """The lab's consistency stories as pushed alerts: one per finding, labelled exactly as
     the generated LightwardenLinkMismatch rule labels it (exporters/prometheus/README.md)."""
     base = setup["am"]
-    # lab.yaml stories; kinds and severities are ours (rules/consistency.py). 1471/1491 nm
-    # are adjacent ITU-T G.694.2 channels; 1310/1570 nm is no common BiDi pair (practice).
-    want = {
-        ("qm-core-a", "sfp37", "qm-core-b", "sfp37", "bidi-not-complementary", "warning"),
-        ("qm-core-a", "sfp39", "qm-core-b", "sfp39", "cwdm-channel-mismatch", "critical"),
-        ("qm-dist-a", "sfp41", "qm-dist-b", "sfp41", "fibre-type-mismatch", "warning"),
-        ("qm-core-b", "sfp15", "qm-dist-b", "sfp15", "pmd-mismatch", "warning"),
-    }
 
     def links():
         got = [a for a in _am_alerts(base)
                if a["labels"]["alertname"] == "LightwardenLinkMismatch"]
-        seen = {(a["labels"]["device"], a["labels"]["port"], a["labels"]["far_device"],
-                 a["labels"]["far_port"], a["labels"]["kind"], a["labels"]["severity"])
-                for a in got}
-        return got if seen >= want else None
+        return got if {label_tuple(a["labels"]) for a in got} >= LAB_FINDINGS else None
 
     try:
         got = wait_for(links, 60, "LightwardenLinkMismatch for the lab's stories", step=0.5)
     except AssertionError as exc:
         raise AssertionError(_fail_msg(setup, str(exc))) from None
-    assert len(got) == len(want)  # one alert per finding, nothing else
+    assert len(got) == len(LAB_FINDINGS)  # one alert per finding, nothing else
     for a in got:
         assert set(a["labels"]) == {"alertname", "severity", "device", "port", "far_device",
                                     "far_port", "kind", "site"}, a["labels"]

@@ -14,6 +14,7 @@ import urllib.request
 
 import pytest
 from support.demo import DemoProc
+from support.lab_findings import LAB_FINDINGS, LINK_LABELS, label_tuple
 from support.procs import LOOPBACK, require_binary, start_on_free_port, wait_for
 
 from lightwarden.fixtures.lab.model import Lab
@@ -144,6 +145,18 @@ def test_prometheus_fires_the_overload_rule_for_the_hot_receiver(demo, prometheu
     assert {(a["labels"]["device"], a["labels"]["port"]) for a in dark} == {
         ("qm-dist-b", "sfp20")
     }
+
+    # The lab's consistency stories fire the link rule with exactly the pushed alert's
+    # labels (job and instance aggregated away), one alert per finding.
+    def links_firing():
+        got = firing("LightwardenLinkMismatch")
+        return got if {label_tuple(a["labels"]) for a in got} >= LAB_FINDINGS else None
+
+    links = wait_for(links_firing, 60, "LightwardenLinkMismatch firing for the lab's findings",
+                     step=1.0)
+    assert sorted(label_tuple(a["labels"]) for a in links) == sorted(LAB_FINDINGS)
+    for a in links:
+        assert set(a["labels"]) == {"alertname", *LINK_LABELS}, a["labels"]
 
     # Ending the demo the way a service manager does is a clean exit.
     assert demo.terminate() == 0, demo.log_tail()

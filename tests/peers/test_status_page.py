@@ -10,6 +10,7 @@ import urllib.request
 import pytest
 import yaml
 from prometheus_client.parser import text_string_to_metric_families
+from support.lab_findings import LAB_FINDINGS, label_tuple
 
 from lightwarden.exporters.app.config import parse_config
 from lightwarden.exporters.app.wiring import build_monitor
@@ -20,16 +21,6 @@ from lightwarden.fixtures.lab.server import lab_site_config
 from lightwarden.rules.advice import LASER_CAUTION
 from lightwarden.rules.consistency import ALERTNAME
 
-#: The lab's consistency stories (lab.yaml): (A end, port, B end, kind, severity).
-#: Kinds and severities are ours (rules/consistency.py); the grids they rest on are
-#: ITU-T G.694.2 (1471 vs 1491 nm: adjacent channels) and the common BiDi pairs
-#: (1310/1570 nm is none of them: practice).
-LAB_FINDINGS = {
-    ("qm-core-b", "sfp15", "qm-dist-b", "pmd-mismatch", "warning"),
-    ("qm-core-a", "sfp37", "qm-core-b", "bidi-not-complementary", "warning"),
-    ("qm-core-a", "sfp39", "qm-core-b", "cwdm-channel-mismatch", "critical"),
-    ("qm-dist-a", "sfp41", "qm-dist-b", "fibre-type-mismatch", "warning"),
-}
 SEVERITY = {"healthy": 0, "unknown": 1, "near_sensitivity": 2, "near_overload": 2,
             "warning": 2, "below_sensitivity": 3, "overloaded": 3, "alarm": 3, "dark": 3}
 
@@ -82,11 +73,9 @@ def test_api_lists_every_optic_worst_first_with_alerts(served):
     assert "1310 nm and 1550 nm" in wrong[0]["text"]
     # The consistency stories, and nothing else (the matched BiDi pair on sfp38 and the LX
     # run over OM4 with mode-conditioning cords on sfp42 give no finding).
-    assert {(i["device"], i["port"], i["far_device"], i["kind"], i["severity"])
-            for i in doc["links"]} == LAB_FINDINGS
-    opened = {(a["device"], a["port"], a["kind"]) for a in doc["alerts"]
-              if a["alertname"] == ALERTNAME}
-    assert opened == {(d, p, k) for d, p, _f, k, _s in LAB_FINDINGS}
+    assert {label_tuple(i) for i in doc["links"]} == LAB_FINDINGS
+    opened = {label_tuple(a) for a in doc["alerts"] if a["alertname"] == ALERTNAME}
+    assert opened == LAB_FINDINGS
     hot = [a for a in doc["alerts"] if a["device"] == "qm-core-a" and a["port"] == "sfp31"]
     assert hot and "dB" in hot[0]["advice"]
     assert hot[0]["caution"] == LASER_CAUTION
@@ -118,8 +107,7 @@ def test_metrics_carry_one_series_per_lab_finding(served):
     server, _monitor = served
     _ctype, body = _get(server.url + "/metrics")
     found = {
-        (x.labels["device"], x.labels["port"], x.labels["far_device"], x.labels["kind"],
-         x.labels["severity"])
+        label_tuple(x.labels)
         for fam in text_string_to_metric_families(body.decode())
         for x in fam.samples if x.name == "lightwarden_link_consistency" and x.value == 1
     }

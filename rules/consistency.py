@@ -40,7 +40,7 @@ from lightwarden.rules.plant import Plant, PortRef
 from lightwarden.rules.spanloss import MULTIMODE, SINGLEMODE, PlantSpan
 
 #: The alert name of every consistency finding, pushed and in the generated rules alike.
-ALERTNAME = "LightwardenLinkMismatch"
+ALERTNAME = "OpticLinkMismatch"
 
 
 class Mismatch(StrEnum):

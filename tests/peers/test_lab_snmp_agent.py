@@ -243,7 +243,8 @@ def test_sensor_values_decode_to_the_model_sample(agent: LabSnmpAgent, lab: Lab,
                                                   device: str, creds: list[str]):
     sensors = sensors_on(agent.ports[device], tuple(creds))
     dev = lab.devices[device]
-    want_count = sum(2 + 3 * p.optic.part.lanes for p in dev.ports if p.optic is not None)
+    want_count = sum(2 + 3 * p.optic.part.lanes + p.optic.total_rx_sensor
+                     for p in dev.ports if p.optic is not None)
     assert len(sensors) == want_count
     dbm = dev.power_encoding == "dbm"
     for (port_name, what, lane), s in sensors.items():

@@ -291,7 +291,8 @@ def test_check_shows_the_lab_consistency_stories(lab_process):
         ("qm-dist-a", "sfp41"): sm_on_mm, ("qm-dist-b", "sfp41"): sm_on_mm,
         ("qm-core-b", "sfp15"): wrong, ("qm-dist-b", "sfp15"): wrong,
     }
-    cw = next(r for r in rows if r["port"] == "sfp39")["findings"][0]
+    cw = next(r for r in rows if (r["device"], r["port"]) == ("qm-core-a", "sfp39"))
+    cw = cw["findings"][0]
     assert "1471 nm (channel 1471 nm) vs 1491 nm (channel 1491 nm), 20 nm apart" in cw["text"]
     text = lightwarden("check", "-c", str(site), env=LAB_ENV).stdout
     assert "Optics and plant that do not belong together:" in text

@@ -135,14 +135,14 @@ def judge(
         # The declared levels, every quantity.
         level_c = np.full(n, int(Condition.HEALTHY), dtype=np.int8)
         level_e = np.zeros(n, dtype=np.int8)
-        for past, cond, edge in (
+        for past, cond, which in (
             (value < lo_w + shrink, Condition.WARNING, Edge.LOW_WARNING),
             (value > hi_w - shrink, Condition.WARNING, Edge.HIGH_WARNING),
             (value < lo_a + shrink, Condition.ALARM, Edge.LOW_ALARM),
             (value > hi_a - shrink, Condition.ALARM, Edge.HIGH_ALARM),
         ):
             level_c[past] = cond
-            level_e[past] = edge
+            level_e[past] = which
 
     take_level = SEVERITY_OF[level_c] > SEVERITY_OF[margin_c]
     condition = np.where(take_level, level_c, margin_c).astype(np.int8)
@@ -402,30 +402,31 @@ def _module_flags(
 
     for o, opt in flagged:
         for name, lane in sorted(opt.flags):
+            row: int | None
             if name == "tx_fault":
-                r = rows.get((o, _TX, lane))
-                if r is not None:
-                    mark(r, Condition.TX_FAULT, TX_FAULT_FLAG_NOTE)
+                row = rows.get((o, _TX, lane))
+                if row is not None:
+                    mark(row, Condition.TX_FAULT, TX_FAULT_FLAG_NOTE)
             elif name == "rx_los":
-                r = rows.get((o, _RX, lane))
-                if r is not None and batch.status[r] == ReadingStatus.OK:
-                    mark(r, Condition.LOSS_OF_SIGNAL, LOS_FLAG_NOTE)
+                row = rows.get((o, _RX, lane))
+                if row is not None and batch.status[row] == ReadingStatus.OK:
+                    mark(row, Condition.LOSS_OF_SIGNAL, LOS_FLAG_NOTE)
             else:
                 label, _, level = name.rpartition("_")
                 quantity = _FLAG_QUANTITY.get(label.rsplit("_", 1)[0])
                 if quantity is None or level not in ("alarm", "warning"):
                     continue
-                r = rows.get((o, int(quantity), lane))
-                if r is None or batch.status[r] != ReadingStatus.OK:
+                row = rows.get((o, int(quantity), lane))
+                if row is None or batch.status[row] != ReadingStatus.OK:
                     continue
                 latched = Condition.LATCHED_ALARM if level == "alarm" else Condition.LATCHED_WARNING
-                mark(r, latched, LATCHED_NOTE.format(name.replace("_", " ")),
+                mark(row, latched, LATCHED_NOTE.format(name.replace("_", " ")),
                      only_if_milder=True)
         if opt.module_state not in ("", "ready"):
             for q in (Quantity.TEMPERATURE, Quantity.SUPPLY):
-                r = rows.get((o, int(q), 0))
-                if r is not None:
-                    mark(r, Condition.NOT_READY, NOT_READY_NOTE.format(opt.module_state),
+                row = rows.get((o, int(q), 0))
+                if row is not None:
+                    mark(row, Condition.NOT_READY, NOT_READY_NOTE.format(opt.module_state),
                          only_if_milder=True)
                     break
 

@@ -184,7 +184,8 @@ def total_window(window: Window, lanes: int) -> Window:
     shift = 10.0 * math.log10(lanes)
     note = (f"total power of {lanes} lanes: judged against the per-lane edges "
             f"+{shift:.1f} dB (assumes equal lanes; a weak lane can hide in a total)")
-    return Window(*(e + shift for e in window.edges), sources=window.sources,
+    lo, hi, lo_a, hi_a, lo_w, hi_w = (e + shift for e in window.edges)
+    return Window(lo, hi, lo_a, hi_a, lo_w, hi_w, sources=window.sources,
                   note="; ".join(t for t in (window.note, note) if t))
 
 

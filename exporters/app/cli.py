@@ -409,6 +409,13 @@ def build_parser() -> argparse.ArgumentParser:
     ru = sub.add_parser("rules", help="write Prometheus alerting rules for our metrics")
     rules_parser(ru)
     ru.set_defaults(func=cmd_rules)
+
+    from lightwarden.exporters.pages.budget import build_parser as budget_parser
+    from lightwarden.exporters.pages.budget import run as budget_run
+
+    bu = sub.add_parser("budget", help="power budget of a planned link: will it close, which pad")
+    budget_parser(bu)
+    bu.set_defaults(func=budget_run)
     return p
 
 

@@ -472,17 +472,26 @@ def check_plant(span: PlantSpan, ends: Iterable[OpticIdentity],
 
 def _reach_m(pmd: str, span: PlantSpan, plant_kind: str,
              catalogue: Catalogue) -> tuple[float, str] | None:
-    if plant_kind == MM:
-        by_grade = MULTIMODE_REACH_M.get(pmd)
-        if by_grade is None:
-            return None
-        reach = by_grade.get(span.fibre.strip().upper())
-        return None if reach is None else (reach, f"reach on {span.fibre}, IEEE 802.3")
-    spec = catalogue.lookup(pmd)
-    if spec is None or spec.reach_m is None or not math.isfinite(spec.reach_m):
+    """The longest span the PMD is promised on this fibre, with where that comes from.
+
+    The PMD table's row for the span's fibre first (its per-grade reach on multimode);
+    past the standard's reach, a row's engineered-link length (10GBASE-ER: 30 km, 40 km
+    engineered, IEEE 802.3 cl.52) still counts as promised, since the standard provides
+    for it and the span-loss check watches the budget. ``MULTIMODE_REACH_M`` covers rows
+    without per-grade figures.
+    """
+    spec = catalogue.lookup(pmd, fibre=span.fibre)
+    reach = spec.reach_for(span.fibre) if spec is not None else None
+    if plant_kind == MM and reach is None:
+        reach = MULTIMODE_REACH_M.get(pmd, {}).get(span.fibre.strip().upper())
+    if reach is None or not math.isfinite(reach):
         return None
-    clause = f"IEEE 802.3 cl.{spec.clause}" if spec.clause else spec.source
-    return spec.reach_m, f"reach, {clause}"
+    clause = f"IEEE 802.3 cl.{spec.clause}" if spec is not None and spec.clause else "IEEE 802.3"
+    engineered = spec.reach_engineered_m if spec is not None else None
+    if engineered is not None and engineered > reach:
+        return engineered, f"engineered-link length, {clause}"
+    where = f"reach on {span.fibre}" if plant_kind == MM else "reach"
+    return reach, f"{where}, {clause}"
 
 
 def check_spans(spans: Iterable[PlantSpan], identity: Callable[[str, str], OpticIdentity | None],

@@ -28,9 +28,17 @@ class BudgetError(ValueError):
 
 
 def _spec(catalogue: Catalogue, option: str, name: str, fibre: str) -> PmdSpec:
-    spec = catalogue.lookup(name)
+    # A PMD with rows per fibre type (1000BASE-LX launches less on multimode) takes the
+    # row for this span's fibre.
+    spec = catalogue.lookup(name, fibre=fibre)
     if spec is None:
-        raise BudgetError(f"{option}: PMD {name!r} is not in the PMD table")
+        reason = catalogue.not_judged_reason(name)
+        raise BudgetError(f"{option}: PMD {name!r} is "
+                          + (f"not an optical PMD the table judges ({reason})" if reason
+                             else "not in the PMD table"))
+    if not spec.has_power_figures or spec.tx_min_dbm is None:
+        raise BudgetError(f"{option}: the PMD table names {spec.name} but holds no power "
+                          "levels for it, so no budget can be worked out")
     return spec
 
 

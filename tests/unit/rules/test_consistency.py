@@ -273,3 +273,13 @@ def test_spans_indexed_by_device_give_the_same_findings():
     by_index = check_spans(index["qm-c"], lambda d, p: optics.get((d, p)), CAT)
     assert by_index == consistency(plant, optics, CAT, devices={"qm-c"})
     assert [f.kind for f in by_index] == [Mismatch.FIBRE_TYPE]
+
+
+def test_engineered_link_length_counts_as_reach():
+    # 10GBASE-ER: 30 km, with 40 km as an engineered link (IEEE 802.3 cl.52, from memory;
+    # the PMD table's reach_m and reach_engineered_m).
+    er = [_o("qm-a", "10GBASE-ER", 1550), _o("qm-b", "10GBASE-ER", 1550)]
+    assert check_plant(_span(33.0), er, CAT) == []
+    found = check_plant(_span(45.0), er, CAT)
+    assert _kinds(found) == {Mismatch.BEYOND_REACH: Severity.WARNING}
+    assert "45.0 km" in found[0].text and "40.0 km (engineered-link length" in found[0].text

@@ -369,7 +369,10 @@ class AlertKind(StrEnum):
 
 @dataclass(slots=True, frozen=True)
 class AlertEvent:
-    """One step in the life of an alert about one (device, port, lane, quantity)."""
+    """One step in the life of an alert about one (device, port, lane, quantity), or,
+    with ``finding`` set, about a link's consistency (rules/consistency.py): then
+    ``quantity`` and ``condition`` are None, ``lane`` is 0 and ``far_device``/``far_port``
+    name the span's other end ("" for a finding about one module)."""
 
     kind: AlertKind
     key: str  # stable identity of the alert across its life and across instances
@@ -379,8 +382,8 @@ class AlertEvent:
     device: str
     port: str
     lane: int
-    quantity: Quantity
-    condition: Condition
+    quantity: Quantity | None  # None: a link finding, not a reading
+    condition: Condition | None
     value: float | None
     unit: str
     edge_name: str  # "overload", "sensitivity", "high_alarm", ...
@@ -394,12 +397,17 @@ class AlertEvent:
     starts_at: float  # epoch seconds
     ends_at: float | None = None  # set on resolve
     at: float = 0.0  # when this event was produced
+    finding: str = ""  # a consistency kind (rules.consistency.Mismatch word), or ""
+    far_device: str = ""
+    far_port: str = ""
 
     def __post_init__(self) -> None:
         # A word where a member belongs would surface later as a wrong label ("0" for
         # a quantity) or an AttributeError in a sender; refuse it here, by name.
         for name, kind in _EVENT_ENUMS:
             value = getattr(self, name)
+            if value is None and self.finding and name in _LINK_NONE:
+                continue
             if not isinstance(value, kind):
                 raise TypeError(
                     f"alert event {self.key!r}: {name} must be a member of {kind.__name__}, "
@@ -407,6 +415,8 @@ class AlertEvent:
                 )
 
 
+#: Fields a link finding's event leaves None (it is about no one reading).
+_LINK_NONE = frozenset({"quantity", "condition"})
 _EVENT_ENUMS: tuple[tuple[str, type], ...] = (
     ("kind", AlertKind),
     ("severity", AlertSeverity),

@@ -26,7 +26,7 @@ from lightwarden.rules.advice import (
     summarize,
 )
 from lightwarden.rules.assess import MarginTargets
-from lightwarden.rules.event_codec import FIELDS, event_from_dict, event_to_dict
+from lightwarden.rules.event_codec import FIELDS, REQUIRED, event_from_dict, event_to_dict
 from lightwarden.rules.findings import (
     SEVERITY_OF,
     AlertEvent,
@@ -284,7 +284,8 @@ def _track_from_dict(where: str, raw: Any) -> Track:
     last_raw = raw.get("last")
     last = None
     if last_raw is not None:
-        if not isinstance(last_raw, Mapping) or set(last_raw) != _EVENT_FIELDS:
+        # Fields with defaults may be missing: snapshots from before they were added.
+        if not isinstance(last_raw, Mapping) or not REQUIRED <= set(last_raw) <= _EVENT_FIELDS:
             raise ValueError(
                 f"{where}.last: expected an alert event with fields {sorted(_EVENT_FIELDS)}"
             )
@@ -451,6 +452,8 @@ class AlertLifecycle:
             track.phase = STALE_CLEARING if track.phase == STALE_PHASE else CLEARING
         assert track.last is not None
         last = track.last
+        # The lifecycle only ever makes reading events (link findings: rules/link_alerts.py).
+        assert last.quantity is not None and last.condition is not None
         policy = self.config.policy(last.quantity, last.lane)
         hold = policy.gone_hold_s if i is None else policy.resolve_hold_s
         if now - track.clear_since < hold:

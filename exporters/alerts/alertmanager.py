@@ -74,8 +74,9 @@ def optic_url(template: str, event: AlertEvent) -> str:
     without placeholders is used as it is."""
     from urllib.parse import quote
 
+    # A link finding's link goes to its (A end) optic; it has no lane or quantity.
     fields = {"device": event.device, "port": event.port, "lane": str(event.lane),
-              "quantity": event.quantity.label}
+              "quantity": "" if event.quantity is None else event.quantity.label}
     out = template
     for name, value in fields.items():
         out = out.replace("{" + name + "}", quote(value, safe=""))

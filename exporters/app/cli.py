@@ -72,16 +72,27 @@ def run_check(monitor: Monitor, as_json: bool) -> int:
         else:
             rows.extend(optic_rows(v.assessment, monitor.targets, v.contexts, v.links))
     worst_first(rows, monitor.targets)
+    links = monitor.link_issues()
     if as_json:
-        doc: Any = [r.as_json() for r in rows]
+        from lightwarden.exporters.pages.status import finding_json
+
+        # Each row carries the consistency findings of its port (a span's: at both ends).
+        of_port: dict[tuple[str, str], list[dict[str, object]]] = {}
+        for lf in links:
+            for end in {(lf.device, lf.port), (lf.far_device, lf.far_port)}:
+                of_port.setdefault(end, []).append(finding_json(lf))
+        doc: Any = [r.as_json() | {"findings": of_port.get((r.device, r.port), [])}
+                    for r in rows]
         print(json.dumps(doc, indent=2))
         for f in failures:
             print(f"error: {f['device']}: {f['error']}", file=sys.stderr)
     else:
-        print(render_check_table(rows, failures))
+        print(render_check_table(rows, failures, links))
     if failures:
         return EXIT_ERROR
-    return EXIT_FINDINGS if any(r.severity >= Severity.WARNING for r in rows) else EXIT_OK
+    bad = any(r.severity >= Severity.WARNING for r in rows) or any(
+        lf.severity >= Severity.WARNING for lf in links)
+    return EXIT_FINDINGS if bad else EXIT_OK
 
 
 async def _poll_and_close(monitor: Monitor) -> list[Any]:

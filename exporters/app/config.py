@@ -176,6 +176,8 @@ class Span(_Model):
     pad_db: float = Field(default=0.0, ge=0)
     #: the wavelength the loss is judged at; default: the middle of the optics' PMD band
     wavelength_nm: float | None = Field(default=None, gt=0)
+    #: mode-conditioning patch cords at both ends (1000BASE-LX over multimode, cl.38)
+    mode_conditioning: bool = False
 
 
 class Destination(_Model):

@@ -27,6 +27,7 @@ from lightwarden.exporters.store.history import History, HistoryError
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets, assess
 from lightwarden.rules.catalogue import Catalogue, PmdSpec
+from lightwarden.rules.consistency import Finding, check_optic, check_spans, spans_by_device
 from lightwarden.rules.findings import (
     SEVERITY_OF,
     AlertEvent,
@@ -38,9 +39,10 @@ from lightwarden.rules.findings import (
 )
 from lightwarden.rules.hysteresis import ConditionTracker
 from lightwarden.rules.lifecycle import AlertLifecycle
+from lightwarden.rules.link_alerts import LinkAlerts
 from lightwarden.rules.outlook import RxWindow
 from lightwarden.rules.plant import Plant
-from lightwarden.rules.spanloss import LinkIssue, check_link, engineered_loss_db
+from lightwarden.rules.spanloss import engineered_loss_db
 from lightwarden.rules.windows import WindowResolver
 
 log = logging.getLogger("lightwarden.monitor")
@@ -101,6 +103,13 @@ class Monitor:
         self._views: dict[str, DeviceView] = {}
         self._alerts_enabled = alerts
         self.exposition.set_alert_source(self.lifecycle.open_alerts)
+        # Consistency: each port's latest identity (kept while its device is silent, so a
+        # missed poll resolves nothing), the findings now present, and their alerts.
+        self.link_alerts = LinkAlerts()
+        self._identities: dict[str, dict[str, OpticIdentity]] = {}  # device -> port -> id
+        self._spans_of = spans_by_device(self.plant)
+        self._findings: dict[str, Finding] = {}
+        self.exposition.set_link_source(self.link_issues)
 
     # -- the read-only view the pages take (pages.view.MonitorView) -------------------
     @property
@@ -120,7 +129,8 @@ class Monitor:
         return self._views
 
     def open_alerts(self) -> list[AlertEvent]:
-        return self.lifecycle.open_alerts()
+        """Open reading alerts, then open link-finding alerts."""
+        return self.lifecycle.open_alerts() + self.link_alerts.open_alerts()
 
     def plant_with_history(self) -> Plant:
         """The plant, with span wavelengths taken from the PMDs the history has seen."""
@@ -129,21 +139,29 @@ class Monitor:
         pmd_of = {(w.device, w.port): w.pmd for w in self.history.rx_windows()}
         return self.parts.plant_with(pmd_of)
 
-    def link_issues(self) -> list[LinkIssue]:
-        """Spans in the plant record whose two ends do not belong together (wrong PMD,
-        wavelength, or BiDi pairing), from the latest identity of each end."""
-        optics: dict[tuple[str, str], OpticIdentity] = {}
-        for view in self._views.values():
-            if view.outcome.batch is not None:
-                for o in view.outcome.batch.optics:
-                    optics[(o.device, o.port)] = o
-        issues: list[LinkIssue] = []
-        for sp in self.plant.spans:
-            a = optics.get((sp.a_device, sp.a_port))
-            b = optics.get((sp.b_device, sp.b_port))
-            if a is not None and b is not None:
-                issues.extend(check_link(a, b))
-        return issues
+    def link_issues(self) -> list[Finding]:
+        """Consistency findings now present (rules/consistency.py), worst first."""
+        found = list(self._findings.values())
+        found.sort(key=lambda f: (-f.severity, f.key))
+        return found
+
+    def _identity(self, device: str, port: str) -> OpticIdentity | None:
+        return self._identities.get(device, {}).get(port)
+
+    def _check_links(self, outcome: PollOutcome, now: float) -> list[AlertEvent]:
+        """Re-check the ports and spans of a device just polled; their alert events."""
+        batch, device = outcome.batch, outcome.device
+        if batch is None:
+            return []  # no evidence either way
+        own = self._identities[device] = {o.port: o for o in batch.optics}
+        found = [f for o in own.values() for f in check_optic(o, self.catalogue)]
+        found += check_spans(self._spans_of.get(device, ()), self._identity, self.catalogue)
+        for fkey in [k for k, f in self._findings.items() if f.involves(device)]:
+            del self._findings[fkey]
+        self._findings.update((f.key, f) for f in found)
+        if not self._alerts_enabled:
+            return []
+        return self.link_alerts.observe(found, {device}, now)
 
     # -- setup and teardown -----------------------------------------------------------
     def build_sources(self) -> list[PollSource]:
@@ -187,6 +205,7 @@ class Monitor:
                 events = self.lifecycle.observe(assessment, now, context)
         elif self._alerts_enabled:
             events = self.lifecycle.mark_stale(outcome.device, now)
+        events += self._check_links(outcome, now)
         self.exposition.update(outcome, assessment)
         view = self._views[outcome.device] = DeviceView(
             outcome, assessment, far if outcome.batch is not None else {},

@@ -16,7 +16,8 @@ from lightwarden.exporters.pages.report import build_report, render_report, repo
 from lightwarden.exporters.pages.rows import OpticRow, optic_rows, worst_first
 from lightwarden.exporters.pages.view import MonitorView
 from lightwarden.rules.advice import LASER_CAUTION
-from lightwarden.rules.findings import AlertSeverity, Severity
+from lightwarden.rules.consistency import Finding
+from lightwarden.rules.findings import AlertEvent, AlertSeverity, Severity
 from lightwarden.rules.outlook import PlannerReport
 
 #: Row colour per rung of the one severity order (alerts and link issues use it too).
@@ -61,12 +62,14 @@ class StatusPage:
         rows, devices = self.rows()
         alerts = [
             {"alertname": a.alertname, "severity": a.severity.value, "device": a.device,
-             "port": a.port, "lane": a.lane, "quantity": a.quantity.label, "summary": a.summary,
+             "port": a.port, "lane": a.lane,
+             "quantity": "" if a.quantity is None else a.quantity.label, "summary": a.summary,
              "advice": a.advice, "caution": a.caution}
+            | ({"kind": a.finding, "far_device": a.far_device, "far_port": a.far_port}
+               if a.finding else {})
             for a in self.monitor.open_alerts()
         ]
-        links = [{"kind": i.kind, "severity": i.severity.value, "text": i.text}
-                 for i in self.monitor.link_issues()]
+        links = [finding_json(i) for i in self.monitor.link_issues()]
         doc = {"devices": devices, "optics": [r.as_json() for r in rows], "alerts": alerts,
                "links": links}
         return 200, "application/json", json.dumps(doc).encode()
@@ -119,17 +122,21 @@ class StatusPage:
                 out.append(
                     f"<tr class={_alert_class(a.severity)}>"
                     f"<td class=l>{escape(a.alertname)}</td>"
-                    f"<td class=l>{escape(a.device)} {escape(a.port)} lane {a.lane}</td>"
+                    f"<td class=l>{escape(_where(a))}</td>"
                     f"<td class=l>{escape(a.summary)}</td><td class=l>{escape(a.advice)}</td>"
                     "</tr>"
                 )
             out.append("</table>")
         links = self.monitor.link_issues()
         if links:
-            out.append("<h2>Links whose ends do not match</h2><ul>")
-            out += [f"<li class={_alert_class(i.severity)}>"
-                    f"{escape(i.text)}</li>" for i in links]
-            out.append("</ul>")
+            out.append("<h2>Optics and plant that do not belong together</h2><table><tr>"
+                       "<th class=l>finding</th><th class=l>severity</th><th class=l>what</th>"
+                       "<th class=l>advice</th></tr>")
+            out += [f"<tr class={_CLASS[i.severity]}><td class=l>{escape(i.kind.value)}</td>"
+                    f"<td class=l>{escape(i.severity.word)}</td>"
+                    f"<td class=l>{escape(i.text)}</td><td class=l>{escape(i.advice)}</td></tr>"
+                    for i in links]
+            out.append("</table>")
         out.append(
             "<h2>Optics</h2><table><tr><th class=l>device</th><th class=l>port</th>"
             "<th>lane</th><th class=l>PMD</th><th>Rx dBm</th><th>Tx dBm</th><th>bias mA</th>"
@@ -156,6 +163,20 @@ class StatusPage:
         out.append(f"<p class=caution>{escape(LASER_CAUTION)}</p>")
         out.append("</body></html>")
         return 200, "text/html; charset=utf-8", "".join(out).encode()
+
+
+def finding_json(f: Finding) -> dict[str, object]:
+    """One consistency finding as the JSON API and `check --json` show it."""
+    return {"kind": f.kind.value, "severity": f.severity.word, "device": f.device,
+            "port": f.port, "far_device": f.far_device, "far_port": f.far_port,
+            "text": f.text, "advice": f.advice, "caution": LASER_CAUTION}
+
+
+def _where(a: AlertEvent) -> str:
+    if a.quantity is None:
+        far = f" / {a.far_device} {a.far_port}" if a.far_device else ""
+        return f"{a.device} {a.port}{far}"
+    return f"{a.device} {a.port} lane {a.lane}"
 
 
 def _edge_sources(r: OpticRow) -> str:

@@ -10,9 +10,9 @@ from lightwarden.collector.readings import PollOutcome, Quantity
 from lightwarden.exporters.store.history import History
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets
+from lightwarden.rules.consistency import Finding
 from lightwarden.rules.findings import AlertEvent, Assessment
 from lightwarden.rules.plant import Plant
-from lightwarden.rules.spanloss import LinkIssue
 
 
 @dataclass(slots=True, frozen=True)
@@ -49,5 +49,5 @@ class MonitorView(Protocol):
     def views(self) -> Mapping[str, DeviceView]: ...
 
     def open_alerts(self) -> list[AlertEvent]: ...
-    def link_issues(self) -> list[LinkIssue]: ...
+    def link_issues(self) -> list[Finding]: ...
     def plant_with_history(self) -> Plant: ...

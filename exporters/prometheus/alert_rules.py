@@ -24,6 +24,7 @@ from typing import Any
 import yaml
 
 from lightwarden.rules.advice import LASER_CAUTION
+from lightwarden.rules.consistency import ALERTNAME as LINK_ALERTNAME
 from lightwarden.rules.findings import Condition
 from lightwarden.rules.lifecycle import ALERTNAMES
 
@@ -34,6 +35,10 @@ HEADER = (
 _DURATION = re.compile(r"^([0-9]+(ms|s|m|h|d|w|y))+$")
 # The exposition's lane/port labels: joins between optic-level series use all of them.
 _OPTIC = "job, instance, device, port, lane"
+#: The labels of a pushed link-finding alert (exporters/alerts/wording.alert_labels): the
+#: rule keeps exactly these (job, instance and external labels aggregated away), so a site
+#: running both gets one alert per finding; the severity comes from the finding.
+LINK_LABELS = "device, port, far_device, far_port, kind, severity"
 
 
 @dataclass(slots=True, frozen=True)
@@ -51,6 +56,7 @@ class RuleParams:
     device_data_age_s: float = 900.0
     monitor_job: str = "lightwarden"
     monitor_down_for: str = "5m"
+    link_for: str = "0s"  # a finding is a fact about parts, not a level: no hold
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -218,10 +224,29 @@ def build_rules(p: RuleParams) -> dict[str, Any]:
             },
         },
     ]
+    links = [
+        {
+            "alert": LINK_ALERTNAME,
+            "expr": f"max by ({LINK_LABELS}) (lightwarden_link_consistency) == 1\n",
+            "for": p.link_for,
+            "annotations": {
+                "summary": "{{ $labels.kind }} on {{ $labels.device }} {{ $labels.port }}"
+                "{{ if $labels.far_device }} / {{ $labels.far_device }} "
+                "{{ $labels.far_port }}{{ end }}",
+                "description": "The optics fitted, or the fibre plant recorded, do not belong "
+                "together (PMD, wavelength, BiDi pair, CWDM/DWDM channel, fibre type or "
+                "reach); the status page and `lightwarden check` give the numbers.",
+                "advice": "Check the part numbers at both ends against the plant record and "
+                "the optics' datasheets, then fit matching optics or correct the record.",
+                "caution": LASER_CAUTION,
+            },
+        },
+    ]
     return {
         "groups": [
             {"name": "lightwarden-optics", "rules": optics},
             {"name": "lightwarden-devices", "rules": devices},
+            {"name": "lightwarden-links", "rules": links},
         ]
     }
 

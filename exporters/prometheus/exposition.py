@@ -40,6 +40,7 @@ import numpy as np
 
 from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
 from lightwarden.exporters.prometheus.self_metrics import SelfMetrics
+from lightwarden.rules.consistency import Finding
 from lightwarden.rules.findings import (
     SEVERITY_OF,
     AlertEvent,
@@ -208,6 +209,11 @@ ALERT_OPEN = Family(
     "lightwarden_alert_open",
     "gauge",
     "1 for each alert lightwarden currently holds open.",
+)
+LINK_CONSISTENCY = Family(
+    "lightwarden_link_consistency",
+    "gauge",
+    "1 for each consistency finding present (optics and plant that do not belong together).",
 )
 
 _N = len(DEVICE_FAMILIES)
@@ -518,6 +524,7 @@ class Exposition:
     ) -> None:
         self._options = options or ExpositionOptions()
         self._alerts = alerts
+        self._links: Callable[[], Iterable[Finding]] | None = None
         self._gzip_level = gzip_level
         self._lock = threading.Lock()
         self._devices: dict[str, DeviceChunks] = {}
@@ -542,6 +549,10 @@ class Exposition:
 
     def set_alert_source(self, alerts: AlertSource | None) -> None:
         self._alerts = alerts
+
+    def set_link_source(self, links: Callable[[], Iterable[Finding]] | None) -> None:
+        """Consistency findings, rendered at scrape time like the open alerts."""
+        self._links = links
 
     def set_self_metrics(self, self_metrics: SelfMetrics | None) -> None:
         """Append the monitor's own figures (process, polls, scrape cost) to every scrape."""
@@ -681,7 +692,23 @@ class Exposition:
         alerts = self.alerts_text()
         if alerts:
             parts.append(_gz(alerts, self._gzip_level) if compressed else alerts)
+        links = self.links_text()
+        if links:
+            parts.append(_gz(links, self._gzip_level) if compressed else links)
         return parts
+
+    def links_text(self) -> bytes:
+        """The consistency family, rendered now from the link source (b"" when none)."""
+        source = self._links
+        if source is None:
+            return b""
+        try:
+            findings = list(source())
+        except Exception as exc:  # a broken source must not break the scrape
+            log.error("link source failed (%s); findings left out of this scrape",
+                      type(exc).__name__)
+            return b""
+        return render_links(findings)
 
     def body(self) -> bytes:
         """The full exposition, text format 0.0.4, as one bytes object."""
@@ -705,8 +732,8 @@ def render_alerts(events: Iterable[AlertEvent]) -> bytes:
     lines: list[str] = []
     seen: set[tuple[str, ...]] = set()
     for ev in events:
-        if ev.kind is AlertKind.RESOLVE:
-            continue
+        if ev.kind is AlertKind.RESOLVE or ev.quantity is None:
+            continue  # link findings have their own family (render_links)
         labels = (
             ev.alertname,
             ev.severity.value,
@@ -726,3 +753,22 @@ def render_alerts(events: Iterable[AlertEvent]) -> bytes:
     if not lines:
         return b""
     return ALERT_OPEN.header() + "".join(lines).encode("utf-8", "replace")
+
+
+def render_links(findings: Iterable[Finding]) -> bytes:
+    """``lightwarden_link_consistency`` lines, one per finding (value 1 while present)."""
+    lines: list[str] = []
+    seen: set[str] = set()
+    for f in findings:
+        if f.key in seen:
+            continue
+        seen.add(f.key)
+        d, p, fd, fp, k, s = (escape_label_value(x) for x in (
+            f.device, f.port, f.far_device, f.far_port, f.kind.value, f.severity.word))
+        lines.append(
+            f'lightwarden_link_consistency{{device="{d}",port="{p}",far_device="{fd}",'
+            f'far_port="{fp}",kind="{k}",severity="{s}"}} 1\n'
+        )
+    if not lines:
+        return b""
+    return LINK_CONSISTENCY.header() + "".join(lines).encode("utf-8", "replace")

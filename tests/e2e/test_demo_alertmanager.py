@@ -19,6 +19,7 @@ from collections import defaultdict
 import pytest
 from support.alert_helpers import Receiver
 from support.demo import DemoProc
+from support.lab_findings import LAB_FINDINGS, label_tuple
 from support.procs import (
     ALERTMANAGER_CONFIG,
     LOOPBACK,
@@ -168,6 +169,29 @@ def test_overloaded_alerts_reach_alertmanager_with_advice_and_caution(setup):
     for device, port in hot:
         wait_for(lambda d=device, p=port: _notified(hook, "firing", "OpticRxOverloaded", d, p),
                  30, f"a firing notification for {device} {port}", step=0.5)
+
+
+def test_link_findings_reach_alertmanager_with_the_rule_labels(setup):
+    """The lab's consistency stories as pushed alerts: one per finding, labelled exactly as
+    the generated OpticLinkMismatch rule labels it (exporters/prometheus/README.md)."""
+    base = setup["am"]
+
+    def links():
+        got = [a for a in _am_alerts(base)
+               if a["labels"]["alertname"] == "OpticLinkMismatch"]
+        return got if {label_tuple(a["labels"]) for a in got} >= LAB_FINDINGS else None
+
+    try:
+        got = wait_for(links, 60, "OpticLinkMismatch for the lab's stories", step=0.5)
+    except AssertionError as exc:
+        raise AssertionError(_fail_msg(setup, str(exc))) from None
+    assert len(got) == len(LAB_FINDINGS)  # one alert per finding, nothing else
+    for a in got:
+        assert set(a["labels"]) == {"alertname", "severity", "device", "port", "far_device",
+                                    "far_port", "kind", "site"}, a["labels"]
+        assert "never look into a fibre end" in a["annotations"]["caution"].lower()
+        assert a["annotations"]["summary"].startswith(
+            f"{a['labels']['device']} {a['labels']['port']} / ")
 
 
 @pytest.mark.xfail(not DIRTY_REACHES_TARGET, reason=DIRTY_WHY, run=False)

@@ -90,9 +90,10 @@ def test_exits_zero_at_end_of_duration(run):
 
 def test_every_lab_optic_is_exported(run):
     s = _settled(run)
-    # source: the lab model itself (fixtures/lab/model.py): 158 optics across 4 switches.
+    # source: the lab model itself (fixtures/lab/model.py): 168 optics across 4 switches
+    # (158, plus the ten ends of the consistency stories' BiDi, CWDM and multimode runs).
     expected = {(p.device, p.name) for p in LAB.optic_ports()}
-    assert len(expected) == 158
+    assert len(expected) == 168
     info = {(x.labels["device"], x.labels["port"]) for x in s.samples("lightwarden_optic_info")}
     cond = {
         (x.labels["device"], x.labels["port"]) for x in s.samples("lightwarden_optic_condition")
@@ -141,8 +142,8 @@ def test_readings_are_plausible(run):
     for x in s.samples("lightwarden_supply_volts"):
         assert 3.1 <= x.value <= 3.5, x
     assert checked >= 150
-    assert len(s.samples("lightwarden_temperature_celsius")) == 158
-    assert len(s.samples("lightwarden_supply_volts")) == 158
+    assert len(s.samples("lightwarden_temperature_celsius")) == 168  # one per optic
+    assert len(s.samples("lightwarden_supply_volts")) == 168
 
 
 @pytest.mark.parametrize("device", ["qm-core-a", "qm-core-b"])

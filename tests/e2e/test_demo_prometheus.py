@@ -14,6 +14,7 @@ import urllib.request
 
 import pytest
 from support.demo import DemoProc
+from support.lab_findings import LAB_FINDINGS, LINK_LABELS, label_tuple
 from support.procs import LOOPBACK, require_binary, start_on_free_port, wait_for
 
 from lightwarden.fixtures.lab.model import Lab
@@ -106,10 +107,19 @@ def _pushed_alerts(demo: DemoProc) -> set[tuple[str, ...]]:
     """The demo's own open alerts (what it pushes), as the same label sets."""
     with _OPENER.open(f"http://{LOOPBACK}:{demo.port}/api/optics", timeout=5) as r:
         doc = json.loads(r.read())
-    return {tuple(sorted({"alertname": a["alertname"], "severity": a["severity"],
-                          "device": a["device"], "port": a["port"], "lane": str(a["lane"]),
-                          "quantity": a["quantity"]}.items()))
-            for a in doc["alerts"]}
+    return {tuple(sorted(_pushed_labels(a).items())) for a in doc["alerts"]}
+
+
+def _pushed_labels(a: dict) -> dict[str, str]:
+    """A pushed alert's labels (exporters/alerts/wording.alert_labels) from the API row."""
+    if a.get("kind"):  # a link finding: its ends and kind, no lane or quantity
+        out = {"alertname": a["alertname"], "severity": a["severity"], "device": a["device"],
+               "port": a["port"], "kind": a["kind"]}
+        if a["far_device"]:
+            out |= {"far_device": a["far_device"], "far_port": a["far_port"]}
+        return out
+    return {"alertname": a["alertname"], "severity": a["severity"], "device": a["device"],
+            "port": a["port"], "lane": str(a["lane"]), "quantity": a["quantity"]}
 
 
 def test_prometheus_rules_and_pushed_alerts_are_one_definition(demo, prometheus):
@@ -168,3 +178,13 @@ def test_prometheus_rules_and_pushed_alerts_are_one_definition(demo, prometheus)
     # is one alert, from both; its far receiver's darkness is caused by it and silent.
     assert ("OpticLaserOff", "qm-core-a", "sfp20") in got_names
     assert ("OpticDark", "qm-dist-b", "sfp20") not in got_names
+
+    # The lab's consistency stories are part of that one set: one OpticLinkMismatch per
+    # finding, with exactly the pushed alert's labels (job and instance aggregated away).
+    links = {label_tuple(dict(a)) for a in rules if dict(a)["alertname"] == "OpticLinkMismatch"}
+    assert links == LAB_FINDINGS
+    assert all(set(dict(a)) == {"alertname", *LINK_LABELS} for a in rules
+               if dict(a)["alertname"] == "OpticLinkMismatch")
+
+    # Ending the demo the way a service manager does is a clean exit.
+    assert demo.terminate() == 0, demo.log_tail()

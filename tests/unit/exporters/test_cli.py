@@ -294,6 +294,39 @@ def test_check_says_what_to_do_with_the_laser_caution(lab_process):
     assert all(r["advice"] == "" for r in rows if r["condition"] == "healthy")
 
 
+def test_check_shows_the_lab_consistency_stories(lab_process):
+    """lab.yaml's consistency stories through `check` (text and --json), with the plant."""
+    _base, endpoints, tmp = lab_process
+    data = lab_site_config(endpoints, secrets="env", known_hosts=str(endpoints.known_hosts),
+                           lab=Lab.load())
+    site = tmp / "site-plant.yaml"
+    site.write_text(yaml.safe_dump(data))
+    res = lightwarden("check", "-c", str(site), "--json", env=LAB_ENV)
+    assert res.returncode == 1, res.stderr
+    rows = json.loads(res.stdout)
+    found = {(r["device"], r["port"]): {(f["kind"], f["severity"]) for f in r["findings"]}
+             for r in rows if r["findings"]}
+    # Span findings show at both ends. Kinds and severities are ours; 1471/1491 nm are
+    # adjacent ITU-T G.694.2 channels; 1310/1570 nm is no common BiDi pair (practice).
+    bidi = {("bidi-not-complementary", "warning")}
+    cwdm = {("cwdm-channel-mismatch", "critical")}
+    sm_on_mm = {("fibre-type-mismatch", "warning")}
+    wrong = {("pmd-mismatch", "warning")}
+    assert found == {
+        ("qm-core-a", "sfp37"): bidi, ("qm-core-b", "sfp37"): bidi,
+        ("qm-core-a", "sfp39"): cwdm, ("qm-core-b", "sfp39"): cwdm,
+        ("qm-dist-a", "sfp41"): sm_on_mm, ("qm-dist-b", "sfp41"): sm_on_mm,
+        ("qm-core-b", "sfp15"): wrong, ("qm-dist-b", "sfp15"): wrong,
+    }
+    cw = next(r for r in rows if (r["device"], r["port"]) == ("qm-core-a", "sfp39"))
+    cw = cw["findings"][0]
+    assert "1471 nm (channel 1471 nm) vs 1491 nm (channel 1491 nm), 20 nm apart" in cw["text"]
+    text = lightwarden("check", "-c", str(site), env=LAB_ENV).stdout
+    assert "Optics and plant that do not belong together:" in text
+    assert "critical cwdm-channel-mismatch: qm-core-a sfp39 / qm-core-b sfp39" in text
+    assert "plant records OM4 multimode fibre" in text
+
+
 def test_lab_on_a_busy_port_is_a_clear_error(lab_process):
     base, _endpoints, tmp = lab_process
     res = lightwarden("lab", "--port", str(base), "--duration", "1",

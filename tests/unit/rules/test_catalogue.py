@@ -306,7 +306,8 @@ def _lab_names() -> set[str]:
     def walk(node: object) -> None:
         if isinstance(node, dict):
             for k, v in node.items():
-                if k == "pmd" and isinstance(v, str):
+                # "" is a coloured part that declares no compliance code: no row to have
+                if k == "pmd" and isinstance(v, str) and v:
                     found.add(v)
                 walk(v)
         elif isinstance(node, list):

@@ -17,6 +17,7 @@ from lightwarden.collector.readings import (
 )
 from lightwarden.collector.sensors import sensor_value
 from lightwarden.collector.snmp.credentials import SnmpCredentials
+from lightwarden.collector.snmp.fast import FastSession, SocketPool
 from lightwarden.collector.snmp.inventory import (
     ENT_COLUMNS,
     ENT_LAST_CHANGE,
@@ -54,6 +55,24 @@ def _up(value: object) -> bool | None:
     return None
 
 
+#: TimeTicks is an unsigned 32-bit count of hundredths of a second (RFC 2578 section 7.1.8),
+#: so sysUpTime wraps to 0 after about 497 days without the agent restarting.
+TICKS_WRAP = 2**32
+
+
+def agent_restarted(previous: int | None, current: int | None, elapsed_s: float) -> bool:
+    """Whether sysUpTime went back other than by its 2^32 wrap.
+
+    A wrap moves the counter forward (mod 2^32) by about the time that passed; a restart
+    moves it anywhere else. One minute of slack plus half the elapsed time again covers
+    agents whose clock runs unevenly.
+    """
+    if previous is None or current is None or current >= previous:
+        return False
+    forward = (current - previous) % TICKS_WRAP
+    return forward > elapsed_s * 150 + 6000
+
+
 def _ticks(value: object) -> int | None:
     return value if isinstance(value, int) and not isinstance(value, bool) else None
 
@@ -63,8 +82,12 @@ class SnmpSource:
 
     Discovery (interfaces, the entity tree, sensor type/scale/precision/units) is cached;
     a poll reads sysUpTime and entLastChangeTime, re-discovers when the agent restarted
-    (sysUpTime went backwards), the entity tree changed, or the last poll failed, then
+    (sysUpTime went back other than by its 2^32 wrap) or the entity tree changed, then
     walks only sensor value/status and ifAdminStatus/ifOperStatus.
+
+    A failed poll keeps the discovered layout: the next one pays only its marks GET.
+    Steady v2c polls use our own GET/GETBULK path (``fast.py``, sockets from a shared
+    :class:`SocketPool`) unless ``fast_path`` is False; discovery and v3 use pysnmp.
 
     Pass one shared :class:`EnginePool` for all sources on an event loop; without one
     the source makes its own (close it with :meth:`close`).
@@ -90,6 +113,8 @@ class SnmpSource:
         engines: EnginePool | None = None,
         max_repetitions: int = 25,
         eeprom_oid: str | None = None,
+        sockets: SocketPool | None = None,
+        fast_path: bool = True,
     ) -> None:
         self._name = name
         self._own_engines = engines is None
@@ -103,8 +128,19 @@ class SnmpSource:
             retries=retries,
             max_repetitions=max_repetitions,
         )
+        # v2c steady polls go through our own GET/GETBULK path (fast.py); discovery,
+        # memory maps and SNMPv3 stay with pysnmp.
+        self._own_sockets = sockets is None
+        self._sockets = sockets if sockets is not None else SocketPool()
+        self._steady: SnmpSession | FastSession = self._session
+        if fast_path and credentials.version == "2c":
+            self._steady = FastSession(
+                self._sockets, credentials, host, port,
+                timeout=timeout, retries=retries, max_repetitions=max_repetitions,
+            )  # fmt: skip
         self._pmd_names = pmd_names
         self._inventory: Inventory | None = None
+        self._marked_at = 0.0  # monotonic time of the sysUpTime kept in the inventory
         self.discoveries = 0  # how many times the device was (re)discovered
         self._eeprom_oid = ".".join(map(str, parse_oid(eeprom_oid))) if eeprom_oid else None
         #: (ifIndex, serial) -> facts from that module's map; kept across rediscoveries
@@ -129,16 +165,24 @@ class SnmpSource:
         """Drop the cached discovery so the next poll re-reads the device's layout."""
         self._inventory = None
 
+    @property
+    def fast_path(self) -> bool:
+        """Whether steady polls use our own v2c path rather than pysnmp."""
+        return isinstance(self._steady, FastSession)
+
     def close(self) -> None:
         if self._own_engines:
             self._engines.close()
+        if self._own_sockets:
+            self._sockets.close()
 
     async def poll(self, now: float) -> PollOutcome:
         started = time.monotonic()
         try:
             batch = await self._poll(now)
         except SnmpError as exc:
-            self._inventory = None
+            # The layout is kept: a timeout says nothing about the device's modules, and
+            # the next poll's sysUpTime/entLastChangeTime tell whether to look again.
             return PollOutcome(
                 device=self._name,
                 started_at=now,
@@ -163,20 +207,19 @@ class SnmpSource:
         )
 
     async def _poll(self, now: float) -> ReadingBatch:
-        session = self._session
+        session = self._steady
         marks = await session.get([SYS_UPTIME, ENT_LAST_CHANGE], "sysUpTime/entLastChangeTime")
         uptime, last_change = _ticks(marks[SYS_UPTIME]), _ticks(marks[ENT_LAST_CHANGE])
         inventory = self._inventory
-        restarted = (
-            inventory is not None
-            and uptime is not None
-            and inventory.sys_uptime is not None
-            and uptime < inventory.sys_uptime
+        marked_at = time.monotonic()
+        restarted = inventory is not None and agent_restarted(
+            inventory.sys_uptime, uptime, marked_at - self._marked_at
         )
         if inventory is None or restarted or last_change != inventory.last_change:
             inventory = await self._discover(uptime, last_change)
         else:
             inventory.sys_uptime = uptime
+        self._marked_at = marked_at
         if self._maps_pending:
             await self._read_maps(inventory)
         live = await session.walk_columns(

@@ -295,7 +295,7 @@ class FastSession:
     ) -> dict[str, dict[Oid, object]]:
         """Walk table columns together with GETBULK (as SnmpSession.walk_columns)."""
         prefixes = dict(zip(columns, self._oids(columns), strict=True))
-        last = dict(prefixes)
+        last = dict(prefixes)  # each column's last OID, as sent back in the next request
         results: dict[str, dict[Oid, object]] = {col: {} for col in columns}
         active = list(columns)
         template, reps = self._template, self.max_repetitions
@@ -341,7 +341,10 @@ class FastSession:
             if tag == END_OF_MIB_VIEW or not oid.startswith(prefix):
                 finished.add(col)
                 continue
-            if oid <= last[col]:
+            index = sub_ids(oid[len(prefix):])
+            table = results[col]
+            # Compared as decoded indexes: byte order is not OID order (see wire.py).
+            if (table and index <= next(reversed(table))) or not index:
                 raise SnmpError(
                     PollErrorKind.PROTOCOL,
                     f"{self.where} returned OIDs out of order while reading {what}",
@@ -349,5 +352,5 @@ class FastSession:
             last[col] = oid
             if type(value) is bytes:
                 value = _plain(tag, value, octets)
-            results[col][sub_ids(oid[len(prefix):])] = value
+            table[index] = value
         return [col for col in active if col not in finished]

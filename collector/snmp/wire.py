@@ -7,10 +7,12 @@ and the value as plain Python. Only the subset of BER that SNMP uses is accepted
 (RFC 3416 PDUs inside the RFC 1901 v2c message, definite lengths, X.690 section 8 encodings);
 anything else raises :class:`WireError` naming the byte offset and what was expected.
 
-Why OIDs stay bytes: with the canonical encoding X.690 section 8.19 requires (no leading
-0x80 in a sub-identifier, which the decoder refuses), byte order of the content octets is
-OID order and a byte prefix ending on a sub-identifier boundary is an OID prefix, so a
-walk can test "still inside this column" and "moved forward" without building tuples.
+Why OIDs stay bytes: with the canonical encoding X.690 section 8.19.2 requires (no
+leading 0x80 in a sub-identifier, which the decoder refuses), a byte prefix of an OID's
+content octets that ends on a sub-identifier boundary (a byte below 0x80) is an OID prefix,
+so a walk can test "still inside this column" without building tuples, and send the last
+OID back as it came. Byte order is *not* OID order once a sub-identifier needs two or
+more bytes (256 is 82 00, 16384 is 81 80 00), so order is compared on decoded indexes.
 """
 
 from __future__ import annotations
@@ -42,8 +44,8 @@ REPORT = 0xA8
 
 VERSION_2C = 1  # RFC 1901: version field 1 means SNMPv2c
 
-_INTEGER_TAGS = frozenset((INTEGER, COUNTER32, GAUGE32, TIMETICKS, COUNTER64))
-_OCTET_TAGS = frozenset((OCTET_STRING, IP_ADDRESS, OPAQUE))
+# RFC 2578 section 7.1: the unsigned application types and their upper bounds (exclusive).
+_UNSIGNED_TAGS = {COUNTER32: 2**32, GAUGE32: 2**32, TIMETICKS: 2**32, COUNTER64: 2**64}
 _EMPTY_TAGS = frozenset((NULL, NO_SUCH_OBJECT, NO_SUCH_INSTANCE, END_OF_MIB_VIEW))
 
 #: RFC 3416 error-status names, for messages.
@@ -191,8 +193,13 @@ class Response:
         return ERROR_STATUS[s] if 0 <= s < len(ERROR_STATUS) else f"error-status {s}"
 
 
-def _header(data: bytes, pos: int, end: int, what: str) -> tuple[int, int, int]:
-    """(tag, content start, content end) of the TLV at ``pos``, checked against ``end``."""
+def _header(
+    data: bytes, pos: int, end: int, what: str, whole: bool = True
+) -> tuple[int, int, int]:
+    """(tag, content start, content end) of the TLV at ``pos``, checked against ``end``.
+
+    ``whole=False`` lets the content run past ``end`` (a truncated datagram's outer TLVs).
+    """
     if pos + 2 > end:
         raise WireError(f"truncated at byte {pos}: {what} missing")
     tag = data[pos]
@@ -207,7 +214,10 @@ def _header(data: bytes, pos: int, end: int, what: str) -> tuple[int, int, int]:
         n = int.from_bytes(data[pos : pos + count], "big")
         pos += count
     if pos + n > end:
-        raise WireError(f"truncated at byte {pos}: {what} claims {n} bytes, {end - pos} left")
+        if whole:
+            raise WireError(
+                f"truncated at byte {pos}: {what} claims {n} bytes, {end - pos} left")
+        return tag, pos, end
     return tag, pos, pos + n
 
 
@@ -226,12 +236,19 @@ def _int_at(data: bytes, pos: int, end: int, what: str) -> tuple[int, int]:
 
 
 def peek_request_id(data: bytes) -> int:
-    """The request-id of a v2c message, reading no further than needed (for dispatch)."""
-    start, end = _expect(data, 0, len(data), SEQUENCE, "message SEQUENCE")
-    _, pos = _int_at(data, start, end, "version")
-    _, _, pos = _header(data, pos, end, "community")
-    _, pdu_start, pdu_end = _header(data, pos, end, "PDU")
-    request_id, _ = _int_at(data, pdu_start, pdu_end, "request-id")
+    """The request-id of a v2c message, reading no further than needed (for dispatch).
+
+    Tolerates a message cut short after its request-id, so that the request it answers
+    gets a clear decoding error instead of a timeout.
+    """
+    size = len(data)
+    tag, start, _ = _header(data, 0, size, "message SEQUENCE", whole=False)
+    if tag != SEQUENCE:
+        raise WireError("not an SNMP message")
+    _, pos = _int_at(data, start, size, "version")
+    _, _, pos = _header(data, pos, size, "community")
+    _, pdu_start, _ = _header(data, pos, size, "PDU", whole=False)
+    request_id, _ = _int_at(data, pdu_start, size, "request-id")
     return request_id
 
 
@@ -254,6 +271,14 @@ def decode_response(data: bytes) -> Response:
     request_id, pos = _int_at(data, pos, pdu_end, "request-id")
     error_status, pos = _int_at(data, pos, pdu_end, "error-status")
     error_index, pos = _int_at(data, pos, pdu_end, "error-index")
+    # RFC 3416 section 3: request-id is Integer32, error-status 0..18, error-index
+    # 0..max-bindings; a value outside is a broken or foreign datagram.
+    if not -0x80000000 <= request_id <= 0x7FFFFFFF:
+        raise WireError(f"request-id {request_id} outside Integer32")
+    if not 0 <= error_status < len(ERROR_STATUS):
+        raise WireError(f"error-status {error_status} is not defined by RFC 3416")
+    if not 0 <= error_index <= 0x7FFFFFFF:
+        raise WireError(f"error-index {error_index} out of range")
     pos, vbl_end = _expect(data, pos, pdu_end, SEQUENCE, "varbind list")
     if vbl_end != pdu_end:
         raise WireError("bytes after the varbind list inside the PDU")
@@ -274,12 +299,26 @@ def decode_response(data: bytes) -> Response:
         tag, v_start, v_end = _header(data, o_end, vb_end, "varbind value")
         if v_end != vb_end:
             raise WireError(f"byte {v_end}: bytes after the value inside a varbind")
-        if tag in _INTEGER_TAGS:
+        if tag == INTEGER:
             if v_start == v_end:
                 raise WireError(f"byte {o_end}: empty INTEGER value")
-            value: object = int.from_bytes(data[v_start:v_end], "big", signed=True)
-        elif tag in _OCTET_TAGS:
+            number = int.from_bytes(data[v_start:v_end], "big", signed=True)
+            if not -0x80000000 <= number <= 0x7FFFFFFF:
+                raise WireError(f"byte {o_end}: INTEGER value outside Integer32")
+            value: object = number
+        elif tag in _UNSIGNED_TAGS:
+            if v_start == v_end:
+                raise WireError(f"byte {o_end}: empty INTEGER value")
+            number = int.from_bytes(data[v_start:v_end], "big", signed=True)
+            if not 0 <= number < _UNSIGNED_TAGS[tag]:
+                raise WireError(f"byte {o_end}: value out of range for tag 0x{tag:02x}")
+            value = number
+        elif tag in (OCTET_STRING, OPAQUE):
             value = data[v_start:v_end]
+        elif tag == IP_ADDRESS:
+            value = data[v_start:v_end]
+            if v_end - v_start != 4:
+                raise WireError(f"byte {o_end}: IpAddress of {v_end - v_start} bytes, not 4")
         elif tag in _EMPTY_TAGS:
             if v_start != v_end:
                 raise WireError(f"byte {o_end}: tag 0x{tag:02x} must have no content")

@@ -32,12 +32,12 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from support.snmpd import SnmpdAgent, start_snmpd  # noqa: E402
-from support.snmpd_switch import switch_dataset  # noqa: E402
+from support.snmpd import SnmpdAgent, start_snmpd
+from support.snmpd_switch import switch_dataset
 
-from lightwarden.collector.snmp import EnginePool, SnmpCredentials, SnmpSource  # noqa: E402
-from lightwarden.collector.snmp.fast import FastSession, SocketPool  # noqa: E402
-from lightwarden.collector.snmp.inventory import (  # noqa: E402
+from lightwarden.collector.snmp import EnginePool, SnmpCredentials, SnmpSource
+from lightwarden.collector.snmp.fast import FastSession, SocketPool
+from lightwarden.collector.snmp.inventory import (
     IF_STATUS_COLUMNS,
     SENSOR_LIVE_COLUMNS,
 )

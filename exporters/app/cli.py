@@ -155,15 +155,21 @@ def cmd_validate(args: argparse.Namespace) -> int:
 
 def cmd_run(args: argparse.Namespace) -> int:
     from lightwarden.exporters.app.runtime import Service
-    from lightwarden.exporters.app.wiring import build_monitor
+    from lightwarden.exporters.app.wiring import as_instance, build_monitor
 
     cfg, base = _load(args.config)
+    if args.shard_index is not None:
+        cfg = as_instance(cfg, args.shard_index, args.listen_port)
+    elif args.listen_port is not None:
+        cfg = cfg.model_copy(update={"listen": cfg.listen.model_copy(
+            update={"port": args.listen_port})})  # fmt: skip
     monitor = build_monitor(cfg, base_dir=base)
     monitor.build_sources()
     monitor.open_history()
     service = Service(monitor, cfg, base)
-    print(f"lightwarden: {len(cfg.devices)} devices; metrics at {service.url}/metrics",
-          flush=True)
+    shard = f" (shard {cfg.shard.index} of {cfg.shard.count})" if cfg.shard.count > 1 else ""
+    print(f"lightwarden: {len(monitor.sources)} of {len(cfg.devices)} devices{shard}; "
+          f"metrics at {service.url}/metrics", flush=True)
     service.serve()
     return EXIT_OK
 
@@ -346,6 +352,11 @@ def build_parser() -> argparse.ArgumentParser:
 
     r = sub.add_parser("run", help="the monitor daemon")
     r.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    r.add_argument("--shard-index", type=int, metavar="N",
+                   help="run as shard instance N of shard.count (overrides shard.index; "
+                        "listens on listen.port + N unless --listen-port is given)")
+    r.add_argument("--listen-port", type=int, metavar="PORT",
+                   help="listen on PORT (overrides listen.port)")
     r.set_defaults(func=cmd_run)
 
     c = sub.add_parser("check", help="poll every device once and print each optic")

@@ -218,6 +218,7 @@ class FastSession:
         self._group: SocketGroup | None = None
         self._address: Address | None = None
         self._prebuilt: dict[tuple[str, ...], tuple[bytes, ...]] = {}
+        self.varbinds = 0  # varbinds received so far (for `lightwarden bench`)
 
     @property
     def where(self) -> str:
@@ -268,6 +269,7 @@ class FastSession:
                 f"{self.where} answered {response.error_name} at varbind "
                 f"{response.error_index} while reading {what}",
             )
+        self.varbinds += len(response.oids)
         return response
 
     def _oids(self, oids: Sequence[str]) -> tuple[bytes, ...]:

@@ -138,6 +138,7 @@ class SnmpSession:
         self._auth = credentials.auth_data()
         self._context = ContextData(contextName=credentials.context.encode())
         self._target: UdpTransportTarget | None = None
+        self.varbinds = 0  # varbinds received so far (for `lightwarden bench`)
 
     @property
     def where(self) -> str:
@@ -190,6 +191,7 @@ class SnmpSession:
             lookupMib=False,
         )
         self._check(indication, status, what, f" at varbind {int(index)}")
+        self.varbinds += len(varbinds)
         result: dict[str, object] = {oid: None for oid in oids}
         for requested, (_, value) in zip(oids, varbinds, strict=False):
             result[requested] = plain(value, octets)
@@ -237,6 +239,7 @@ class SnmpSession:
                 lookupMib=False,
             )
             self._check(indication, status, what)
+            self.varbinds += len(varbinds)
             if not varbinds:
                 return results
             finished: set[str] = set()

@@ -170,6 +170,12 @@ class SnmpSource:
         """Whether steady polls use our own v2c path rather than pysnmp."""
         return isinstance(self._steady, FastSession)
 
+    @property
+    def varbinds(self) -> int:
+        """Varbinds received from the device so far, on both paths."""
+        steady = self._steady.varbinds if self._steady is not self._session else 0
+        return self._session.varbinds + steady
+
     def close(self) -> None:
         if self._own_engines:
             self._engines.close()

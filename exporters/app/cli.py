@@ -124,6 +124,23 @@ def _adhoc_config(args: argparse.Namespace) -> SiteConfig:
     return parse_config(yaml.safe_dump(data), "(command line)")
 
 
+def cmd_bench_poll(args: argparse.Namespace) -> int:
+    from lightwarden.collector.snmp.source import SnmpSource
+    from lightwarden.exporters.app.bench import BenchError, run_bench_poll
+    from lightwarden.exporters.app.wiring import build_monitor
+
+    monitor = build_monitor(_adhoc_config(args), base_dir=Path.cwd(), alerts=False)
+    (source,) = monitor.build_sources()
+    if not isinstance(source, SnmpSource):
+        monitor.close()
+        raise UsageError("bench poll reads SNMP devices only")
+    try:
+        print(run_bench_poll(source, args.cycles, args.json, monitor.close))
+    except BenchError as exc:
+        raise UsageError(str(exc)) from None
+    return EXIT_OK
+
+
 def cmd_check(args: argparse.Namespace) -> int:
     from lightwarden.exporters.app.wiring import build_monitor
 
@@ -324,6 +341,21 @@ def _port(text: str) -> int:
 
 
 
+def _target_args(p: argparse.ArgumentParser) -> None:
+    """Credentials and timing for one ad hoc SNMP device (check HOST, bench poll HOST)."""
+    p.add_argument("--community", help="SNMP v2c community (visible to other local users; "
+                   "prefer --community-env)")
+    p.add_argument("--community-env", metavar="VAR", help="read the community from VAR")
+    p.add_argument("--v3-user", metavar="USER", help="SNMPv3 user (authPriv)")
+    p.add_argument("--auth-protocol", default="SHA-256",
+                   choices=["SHA", "SHA-224", "SHA-256", "SHA-384", "SHA-512"])
+    p.add_argument("--priv-protocol", default="AES-128", choices=["AES-128", "AES-192", "AES-256"])
+    p.add_argument("--auth-key-env", default="LIGHTWARDEN_SNMP_AUTH_KEY", metavar="VAR")
+    p.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR")
+    p.add_argument("--timeout", type=float, default=2.0, help="seconds per SNMP request")
+    p.add_argument("--retries", type=int, default=1)
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="lightwarden",
@@ -363,18 +395,17 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("-c", "--config", metavar="SITE.yaml")
     c.add_argument("target", nargs="?", metavar="HOST[:PORT]", help="one SNMP device, ad hoc")
     c.add_argument("--json", action="store_true", help="print a JSON array")
-    c.add_argument("--community", help="SNMP v2c community (visible to other local users; "
-                   "prefer --community-env)")
-    c.add_argument("--community-env", metavar="VAR", help="read the community from VAR")
-    c.add_argument("--v3-user", metavar="USER", help="SNMPv3 user (authPriv)")
-    c.add_argument("--auth-protocol", default="SHA-256",
-                   choices=["SHA", "SHA-224", "SHA-256", "SHA-384", "SHA-512"])
-    c.add_argument("--priv-protocol", default="AES-128", choices=["AES-128", "AES-192", "AES-256"])
-    c.add_argument("--auth-key-env", default="LIGHTWARDEN_SNMP_AUTH_KEY", metavar="VAR")
-    c.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR")
-    c.add_argument("--timeout", type=float, default=2.0, help="seconds per SNMP request")
-    c.add_argument("--retries", type=int, default=1)
+    _target_args(c)
     c.set_defaults(func=cmd_check)
+
+    b = sub.add_parser("bench", help="measure what polling costs this process")
+    bsub = b.add_subparsers(dest="bench_command", required=True)
+    bp = bsub.add_parser("poll", help="discover one SNMP device, then poll it N times")
+    bp.add_argument("target", metavar="HOST[:PORT]")
+    _target_args(bp)
+    bp.add_argument("--cycles", type=int, default=10, metavar="N", help="steady polls")
+    bp.add_argument("--json", action="store_true", help="print JSON")
+    bp.set_defaults(func=cmd_bench_poll)
 
     v = sub.add_parser("validate", help="check a site config without polling")
     v.add_argument("-c", "--config", required=True, metavar="SITE.yaml")

@@ -10,6 +10,7 @@ datagrams, since no real agent sends them.
 from __future__ import annotations
 
 import asyncio
+import json
 import socket
 import threading
 
@@ -23,6 +24,7 @@ from lightwarden.collector.snmp import EnginePool, SnmpCredentials, SnmpSource
 from lightwarden.collector.snmp.fast import FastSession, SocketPool
 from lightwarden.collector.snmp.session import SnmpError
 from lightwarden.collector.snmp.wire import oid_bytes, tlv
+from lightwarden.exporters.app.cli import main as cli_main
 from lightwarden.fixtures.lab.model import LAB_COMMUNITY
 
 pytestmark = pytest.mark.external
@@ -34,6 +36,13 @@ PMD_NAMES = ("100GBASE-LR4", "10GBASE-LR", "1000BASE-LX", "10GBASE-SR", "10GBASE
 @pytest.fixture(scope="module")
 def big_agent(tmp_path_factory):
     agent = start_snmpd(tmp_path_factory.mktemp("snmpd48"), dataset=switch_dataset(48))
+    yield agent
+    agent.stop()
+
+
+@pytest.fixture(scope="module")
+def snmpd_small(tmp_path_factory):
+    agent = start_snmpd(tmp_path_factory.mktemp("snmpd"))
     yield agent
     agent.stop()
 
@@ -238,3 +247,31 @@ def test_groups_hold_at_most_group_size_devices():
     distinct, sockets, rcvbuf = asyncio.run(main())
     assert (distinct, sockets) == (3, 3)
     assert rcvbuf >= 212_992 // 2  # at least the Linux default, at most rmem_max
+
+
+def test_bench_poll_command_reports_per_varbind_costs(snmpd_small, monkeypatch, capsys):
+    monkeypatch.setenv("QM_BENCH_COMMUNITY", snmpd_small.community)
+    code = cli_main(["bench", "poll", f"127.0.0.1:{snmpd_small.port}", "--community-env",
+                     "QM_BENCH_COMMUNITY", "--cycles", "3", "--json"])  # fmt: skip
+    out = capsys.readouterr()
+    assert code == 0, out.err
+    got = json.loads(out.out)
+    assert (got["path"], got["optics"], got["readings"], got["cycles"]) == ("fast v2c", 2, 19, 3)
+    # marks (2) + value and status of 19 sensors + admin/oper of 2 ports, at least
+    assert got["steady_varbinds"] >= 2 + 2 * 19 + 2 * 2
+    assert got["discovery_varbinds"] > got["steady_varbinds"]
+    assert got["steady_us_per_varbind"] > 0 and got["optics_per_core_minute"] > 0
+    assert snmpd_small.community not in out.out + out.err
+
+
+def test_bench_poll_of_a_silent_device_is_a_clear_error(monkeypatch, capsys):
+    monkeypatch.setenv("QM_BENCH_COMMUNITY", "quillmoor-ro")
+    with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as silent:
+        silent.bind(("127.0.0.1", 0))
+        port = silent.getsockname()[1]
+        code = cli_main(["bench", "poll", f"127.0.0.1:{port}", "--community-env",
+                         "QM_BENCH_COMMUNITY", "--timeout", "0.3", "--retries", "0"])  # fmt: skip
+    err = capsys.readouterr().err
+    assert code == 2
+    assert err.startswith("lightwarden bench: ") and "no answer from 127.0.0.1" in err
+    assert "Traceback" not in err

@@ -180,6 +180,8 @@ class PollScheduler:
         try:
             if self._slots is not None:
                 async with self._slots:
+                    if self._stopping:
+                        return None  # shutting down while this poll waited for a slot
                     now = self.clock()  # the poll starts when it gets its slot
                     device.last_started = now
                     outcome = await self._run_poll(device, now)

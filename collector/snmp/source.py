@@ -19,8 +19,10 @@ from lightwarden.collector.sensors import sensor_value
 from lightwarden.collector.snmp.credentials import SnmpCredentials
 from lightwarden.collector.snmp.fast import FastSession, SocketPool
 from lightwarden.collector.snmp.inventory import (
-    ENT_COLUMNS,
     ENT_LAST_CHANGE,
+    ENT_MODULE_ROW,
+    ENT_NAME_ROW,
+    ENT_TREE_COLUMNS,
     IF_ADMIN,
     IF_COLUMNS,
     IF_OPER,
@@ -33,6 +35,7 @@ from lightwarden.collector.snmp.inventory import (
     Inventory,
     PmdNames,
     build_inventory,
+    rows_to_read,
 )
 from lightwarden.collector.snmp.session import (
     EnginePool,
@@ -47,6 +50,8 @@ log = logging.getLogger(__name__)
 IF_UP = 1  # IF-MIB ifAdminStatus/ifOperStatus up(1)
 #: Memory maps fetched per GET when only a few modules are new (a map is up to 896 bytes).
 MAP_GET_CHUNK = 4
+#: Instances per GET when discovery reads chosen entity and sensor rows.
+ROW_GET_CHUNK = 40
 
 
 def _up(value: object) -> bool | None:
@@ -127,6 +132,7 @@ class SnmpSource:
             timeout=timeout,
             retries=retries,
             max_repetitions=max_repetitions,
+            limit=self._engines.limit_for(credentials),
         )
         # v2c steady polls go through our own GET/GETBULK path (fast.py); discovery,
         # memory maps and SNMPv3 stay with pysnmp.
@@ -236,9 +242,15 @@ class SnmpSource:
     async def _discover(self, uptime: int | None, last_change: int | None) -> Inventory:
         session = self._session
         if_tables = await session.walk_columns(IF_COLUMNS, "IF-MIB interface names")
-        ent_tables = await session.walk_columns(ENT_COLUMNS, "ENTITY-MIB physical table")
-        sensor_tables = await session.walk_columns(
-            SENSOR_STATIC_COLUMNS, "ENTITY-SENSOR-MIB sensor table"
+        # Containment and class first, then only the rows of transceivers in ports, their
+        # ports and their sensors: fans, supplies, line cards are never read in full.
+        ent_tables = await session.walk_columns(ENT_TREE_COLUMNS, "ENTITY-MIB containment")
+        wanted = rows_to_read(ent_tables)
+        ent_tables.update(await self._read_rows(
+            ((ENT_MODULE_ROW, wanted.modules), (ENT_NAME_ROW, wanted.named)),
+            "ENTITY-MIB transceiver, port and sensor rows"))  # fmt: skip
+        sensor_tables = await self._read_rows(
+            ((SENSOR_STATIC_COLUMNS, wanted.sensors),), "ENTITY-SENSOR-MIB sensor rows"
         )
         inventory = build_inventory(
             self._name,
@@ -256,6 +268,25 @@ class SnmpSource:
         log.debug("%s: discovered %d optics, %d sensors", self._name, len(inventory.optics),
                   inventory.sensor_count)  # fmt: skip
         return inventory
+
+    async def _read_rows(
+        self, wanted: tuple[tuple[tuple[str, ...], tuple[int, ...]], ...], what: str
+    ) -> dict[str, dict[Oid, object]]:
+        """GET the given columns of the given single-index rows, as walk_columns shapes them."""
+        tables: dict[str, dict[Oid, object]] = {}
+        instances: list[tuple[str, int]] = []
+        for columns, rows in wanted:
+            for column in columns:
+                tables.setdefault(column, {})
+                instances.extend((column, row) for row in rows)
+        for start in range(0, len(instances), ROW_GET_CHUNK):
+            chunk = instances[start : start + ROW_GET_CHUNK]
+            got = await self._session.get([f"{c}.{r}" for c, r in chunk], what)
+            for column, row in chunk:
+                value = got[f"{column}.{row}"]
+                if value is not None:
+                    tables[column][(row,)] = value
+        return tables
 
     async def _read_maps(self, inventory: Inventory) -> None:
         """Fetch the maps of modules not seen before and apply every module's facts."""

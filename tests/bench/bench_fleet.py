@@ -3,10 +3,10 @@
 net-snmp snmpd processes listen on N loopback ports (80 per process); each port is one
 device to the collector (the same dataset behind every port). The collector runs the
 real ``PollScheduler`` (default in-flight cap, first polls spread over the interval) with
-``SnmpSource`` on the fast v2c path, for ``--cycles`` intervals after the first
-(discovery) cycle, and reports failed polls, this process's CPU per steady cycle and per
-device poll, and datagrams the kernel dropped on UDP sockets (/proc/net/udp).
-``--pysnmp`` runs the same fleet with steady polls on pysnmp for comparison.
+``SnmpSource`` on the fast v2c path. The first cycle ends when every device has been
+discovered; then ``--cycles`` steady intervals follow. Reported: failed polls, this
+process's CPU per steady cycle and per device poll, datagrams the kernel dropped on UDP
+sockets (/proc/net/udp). ``--pysnmp`` runs the same fleet with steady polls on pysnmp.
 
     .venv/bin/python tests/bench/bench_fleet.py [--devices 100,1000] [--interval 30]
         [--cycles 2] [--ports 2] [--runs 1] [--pysnmp]
@@ -116,7 +116,14 @@ async def fleet(ports: list[int], interval: float, cycles: int, fast: bool) -> d
     drops0, cpu0, wall0 = udp_drops(), time.process_time(), time.perf_counter()
     sched.start()
     try:
-        await asyncio.sleep(interval)  # the first cycle: every device discovered once
+        # The first cycle ends when every device has been discovered (or after 10
+        # intervals); only then is a cycle steady.
+        names = {s.name for s in sources}
+        deadline = time.monotonic() + 10 * interval
+        while time.monotonic() < deadline:
+            if names <= {o.device for o in outcomes if o.ok}:
+                break
+            await asyncio.sleep(0.5)
         first = len(outcomes)
         cpu1, wall1 = time.process_time(), time.perf_counter()
         await asyncio.sleep(interval * cycles)

@@ -93,6 +93,24 @@ def test_48_port_switch_reads_the_same_on_both_paths_and_in_net_snmp(big_agent):
     assert [o.oper_up for o in fast[1].batch.optics][6] is False
 
 
+def test_discovery_reads_the_tree_first_then_only_optic_rows(big_agent):
+    # Walking the whole entPhysicalTable (8 columns x 769 entities), the sensor table's 4
+    # static columns (672 rows) and 5 IF-MIB columns (48 rows) is 9,080 varbinds before
+    # GETBULK overshoot; tree first, then chosen rows, must read well under that.
+    async def main():
+        source = SnmpSource("qm-agg-48", "127.0.0.1", SnmpCredentials.v2c(big_agent.community),
+                            port=big_agent.port, pmd_names=PMD_NAMES)  # fmt: skip
+        try:
+            first = await source.poll(1.0)
+            return first, source._session.varbinds
+        finally:
+            source.close()
+
+    first, discovery = asyncio.run(main())
+    assert first.ok and len(first.batch) == 48 * 14
+    assert discovery < 0.7 * 9_080, discovery
+
+
 def test_v3_stays_on_pysnmp(big_agent):
     creds = SnmpCredentials.v3(big_agent.v3user, big_agent.authkey, big_agent.privkey)
     source = SnmpSource("qm-agg-48", "127.0.0.1", creds, port=big_agent.port)

@@ -19,6 +19,8 @@ from lightwarden.collector.sensors import sensor_value
 from lightwarden.collector.snmp.credentials import SnmpCredentials
 from lightwarden.collector.snmp.fast import FastSession, SocketPool
 from lightwarden.collector.snmp.inventory import (
+    CLASS_SENSOR,
+    ENT_CLASS,
     ENT_LAST_CHANGE,
     ENT_MODULE_ROW,
     ENT_NAME_ROW,
@@ -52,6 +54,8 @@ IF_UP = 1  # IF-MIB ifAdminStatus/ifOperStatus up(1)
 MAP_GET_CHUNK = 4
 #: Instances per GET when discovery reads chosen entity and sensor rows.
 ROW_GET_CHUNK = 40
+#: Rows are read by GET when fewer than 1/GET_FRACTION of the table, else walked.
+GET_FRACTION = 3
 
 
 def _up(value: object) -> bool | None:
@@ -246,12 +250,16 @@ class SnmpSource:
         # ports and their sensors: fans, supplies, line cards are never read in full.
         ent_tables = await session.walk_columns(ENT_TREE_COLUMNS, "ENTITY-MIB containment")
         wanted = rows_to_read(ent_tables)
+        entities = len(ent_tables.get(ENT_CLASS, ()))
         ent_tables.update(await self._read_rows(
-            ((ENT_MODULE_ROW, wanted.modules), (ENT_NAME_ROW, wanted.named)),
-            "ENTITY-MIB transceiver, port and sensor rows"))  # fmt: skip
+            ENT_MODULE_ROW, wanted.modules, entities, "ENTITY-MIB transceiver rows"))
+        ent_tables.update(await self._read_rows(
+            ENT_NAME_ROW, wanted.named, entities, "ENTITY-MIB port and sensor names"))
+        sensor_entities = sum(1 for c in ent_tables.get(ENT_CLASS, {}).values()
+                              if c == CLASS_SENSOR)
         sensor_tables = await self._read_rows(
-            ((SENSOR_STATIC_COLUMNS, wanted.sensors),), "ENTITY-SENSOR-MIB sensor rows"
-        )
+            SENSOR_STATIC_COLUMNS, wanted.sensors, sensor_entities,
+            "ENTITY-SENSOR-MIB sensor rows")  # fmt: skip
         inventory = build_inventory(
             self._name,
             if_tables,
@@ -270,15 +278,23 @@ class SnmpSource:
         return inventory
 
     async def _read_rows(
-        self, wanted: tuple[tuple[tuple[str, ...], tuple[int, ...]], ...], what: str
+        self, columns: tuple[str, ...], rows: tuple[int, ...], universe: int, what: str
     ) -> dict[str, dict[Oid, object]]:
-        """GET the given columns of the given single-index rows, as walk_columns shapes them."""
-        tables: dict[str, dict[Oid, object]] = {}
-        instances: list[tuple[str, int]] = []
-        for columns, rows in wanted:
-            for column in columns:
-                tables.setdefault(column, {})
-                instances.extend((column, row) for row in rows)
+        """The given columns of the given single-index rows, as walk_columns shapes them.
+
+        GET only when the rows are a small part of the table: through pysnmp a GET costs
+        about 2.8x a walked varbind per varbind (227 against 81 µs measured, it resolves
+        every requested OID), so reading most of a table is cheaper by walking it all.
+        """
+        if not rows:
+            return {column: {} for column in columns}
+        if len(rows) * GET_FRACTION > universe:
+            walked = await self._session.walk_columns(columns, what)
+            keep = set(rows)
+            return {column: {i: v for i, v in table.items() if len(i) == 1 and i[0] in keep}
+                    for column, table in walked.items()}  # fmt: skip
+        tables: dict[str, dict[Oid, object]] = {column: {} for column in columns}
+        instances = [(column, row) for column in columns for row in rows]
         for start in range(0, len(instances), ROW_GET_CHUNK):
             chunk = instances[start : start + ROW_GET_CHUNK]
             got = await self._session.get([f"{c}.{r}" for c, r in chunk], what)

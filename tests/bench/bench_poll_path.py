@@ -7,7 +7,8 @@ snmpd_switch.py). In the same run, on the same agent and columns, it measures:
   (children's CPU from getrusage, so process start-up cancels out);
 - our fast path: ``FastSession.walk_columns`` alone, and a whole ``SnmpSource`` steady
   poll (marks GET, walk, RFC 3433 conversion, batch);
-- the same source on pysnmp (``fast_path=False``) and stock pysnmp ``bulk_walk_cmd``.
+- the same source on pysnmp (``fast_path=False``), over v2c and v3 authPriv (the
+  difference is what pysnmp's USM costs), and stock pysnmp ``bulk_walk_cmd``.
 
 Each figure is the median of ``--runs`` runs (at least 3). This process's CPU time is the
 manager's alone: the agent is another process.
@@ -88,11 +89,14 @@ async def fast_walks(agent: SnmpdAgent, polls: int) -> float:
         pool.close()
 
 
-async def source_polls(agent: SnmpdAgent, polls: int, fast: bool) -> tuple[float, float, int]:
+async def source_polls(agent: SnmpdAgent, polls: int, fast: bool, v3: bool = False,
+                       ) -> tuple[float, float, int]:  # fmt: skip
     """(µs per varbind of a steady poll, µs per varbind of discovery, varbinds per poll)."""
     engines, sockets = EnginePool(), SocketPool()
+    creds = (SnmpCredentials.v3(agent.v3user, agent.authkey, agent.privkey, "SHA", "AES-128")
+             if v3 else SnmpCredentials.v2c(agent.community))  # fmt: skip
     try:
-        source = SnmpSource("qm-agg-48", "127.0.0.1", SnmpCredentials.v2c(agent.community),
+        source = SnmpSource("qm-agg-48", "127.0.0.1", creds,
                             port=agent.port, engines=engines, sockets=sockets,
                             max_repetitions=REPS, fast_path=fast,
                             pmd_names=("100GBASE-LR4",))  # fmt: skip
@@ -175,7 +179,7 @@ def main() -> int:
             figures: dict[str, list[float]] = {k: [] for k in (
                 "net-snmp snmpbulkwalk (marginal)", "ours: walk_columns", "ours: steady poll",
                 "ours: discovery (pysnmp)", "pysnmp path: steady poll",
-                "stock pysnmp bulk_walk_cmd")}  # fmt: skip
+                "pysnmp path, v3 SHA/AES: steady poll", "stock pysnmp bulk_walk_cmd")}  # fmt: skip
             per_poll = 0
             for _ in range(runs):
                 figures["net-snmp snmpbulkwalk (marginal)"].append(net_snmp_marginal(agent))
@@ -185,6 +189,8 @@ def main() -> int:
                 figures["ours: discovery (pysnmp)"].append(discovery)
                 slow, _, _ = asyncio.run(source_polls(agent, max(3, args.polls // 4), False))
                 figures["pysnmp path: steady poll"].append(slow)
+                v3, _, _ = asyncio.run(source_polls(agent, max(3, args.polls // 4), False, True))
+                figures["pysnmp path, v3 SHA/AES: steady poll"].append(v3)
                 figures["stock pysnmp bulk_walk_cmd"].append(
                     asyncio.run(stock_pysnmp(agent, max(2, args.polls // 10))))
         finally:

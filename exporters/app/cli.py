@@ -120,7 +120,8 @@ def _adhoc_config(args: argparse.Namespace) -> SiteConfig:
 
     data = {"site": "adhoc", "credentials": {"adhoc": cred},
             "poll": {"timeout_s": args.timeout, "retries": args.retries},
-            "devices": [{"name": host, "host": host, "port": port_n, "credentials": "adhoc"}]}
+            "devices": [{"name": host, "host": host, "port": port_n, "credentials": "adhoc",
+                         **({"eeprom_oid": args.eeprom_oid} if args.eeprom_oid else {})}]}
     return parse_config(yaml.safe_dump(data), "(command line)")
 
 
@@ -352,6 +353,9 @@ def _target_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--priv-protocol", default="AES-128", choices=["AES-128", "AES-192", "AES-256"])
     p.add_argument("--auth-key-env", default="LIGHTWARDEN_SNMP_AUTH_KEY", metavar="VAR")
     p.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR")
+    p.add_argument("--eeprom-oid", metavar="OID",
+                   help="also read each module's memory map from this column (OID of a "
+                        "table indexed by ifIndex), as a configured device's eeprom_oid does")
     p.add_argument("--timeout", type=float, default=2.0, help="seconds per SNMP request")
     p.add_argument("--retries", type=int, default=1)
 

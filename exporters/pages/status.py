@@ -131,7 +131,8 @@ class StatusPage:
             "<h2>Optics</h2><table><tr><th class=l>device</th><th class=l>port</th>"
             "<th>lane</th><th class=l>PMD</th><th>Rx dBm</th><th>Tx dBm</th><th>bias mA</th>"
             "<th>temp °C</th><th>overload</th><th>sensitivity</th><th>to overload dB</th>"
-            "<th>to sensitivity dB</th><th class=l>window</th><th class=l>condition</th>"
+            "<th>to sensitivity dB</th><th class=l>edges from</th>"
+            "<th class=l>module levels (Rx)</th><th class=l>condition</th>"
             "<th class=l>notes</th></tr>"
         )
         for r in rows:
@@ -143,14 +144,53 @@ class StatusPage:
                     r.rx_power_dbm, r.tx_power_dbm, r.bias_ma, r.temperature_c,
                     r.rx_overload_dbm, r.rx_sensitivity_dbm, r.margin_to_overload_db,
                     r.margin_to_sensitivity_db))
-                + f"<td class=l>{escape(r.window_source)}</td>"
-                f"<td class=l>{escape(r.condition)}</td>"
-                f"<td class=l>{escape('; '.join(r.value_notes))}</td></tr>"
+                + f"<td class=l>{escape(_edge_sources(r))}</td>"
+                f"<td class=l>{escape(_levels(r))}</td>"
+                f"<td class=l>{escape(_condition(r))}</td>"
+                f"<td class=l>{escape('; '.join(r.notes))}</td></tr>"
             )
         out.append("</table>")
         out.append(f"<p class=caution>{escape(LASER_CAUTION)}</p>")
         out.append("</body></html>")
         return 200, "text/html; charset=utf-8", "".join(out).encode()
+
+
+def _edge_sources(r: OpticRow) -> str:
+    """Who declared the margin edges, e.g. "standard" or "sensitivity site, overload
+    standard"."""
+    lo = r.rx_edges.get("sensitivity", {}).get("source")
+    hi = r.rx_edges.get("overload", {}).get("source")
+    if lo == hi:
+        return str(lo or r.window_source)
+    return f"sensitivity {lo or '–'}, overload {hi or '–'}"
+
+
+def _levels(r: OpticRow) -> str:
+    """The declared Rx levels beside the margin edges: "alarm -18.0/+2.5, warning
+    -16.0/+0.5 (module)"."""
+    e = r.rx_edges
+    parts, sources = [], set()
+    for word, lo, hi in (("alarm", "low_alarm", "high_alarm"),
+                         ("warning", "low_warning", "high_warning")):
+        if lo in e or hi in e:
+            parts.append(f"{word} {_lv(e.get(lo))}/{_lv(e.get(hi))}")
+            sources |= {str(x["source"]) for x in (e.get(lo), e.get(hi)) if x}
+    if not parts:
+        return "–"
+    return ", ".join(parts) + f" ({', '.join(sorted(sources))})"
+
+
+def _lv(edge: dict[str, object] | None) -> str:
+    v = edge.get("value") if edge else None
+    return f"{v:+.1f}" if isinstance(v, float) else "–"
+
+
+def _condition(r: OpticRow) -> str:
+    """The condition, with the edge it is about and who declared it."""
+    e = r.edge
+    if not e or r.condition == "healthy":
+        return r.condition
+    return f"{r.condition} ({e.get('source')} {str(e.get('name', '')).replace('_', ' ')})"
 
 
 def _n(v: float | None) -> str:

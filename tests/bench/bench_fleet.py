@@ -47,17 +47,34 @@ COMMUNITY = "quillmoor-bench"
 PORTS_PER_AGENT = 80
 
 
-def start_agents(workdir: Path, ports: list[int], dataset: str) -> list[subprocess.Popen[bytes]]:
+def start_agents(workdir: Path, count: int, dataset: str,
+                 ) -> tuple[list[subprocess.Popen[bytes]], list[int]]:  # fmt: skip
+    """snmpd processes serving ``count`` ports; (processes, ports).
+
+    A port picked free can be taken by another process before snmpd binds it (the machine
+    is shared): such an agent is started again on fresh ports, up to three times.
+    """
     agents: list[subprocess.Popen[bytes]] = []
+    ports: list[int] = []
     try:
-        for i in range(0, len(ports), PORTS_PER_AGENT):
-            sub = workdir / f"agent{i // PORTS_PER_AGENT}"
-            sub.mkdir()
-            agents.append(start_agent(sub, ports[i : i + PORTS_PER_AGENT], dataset))
+        for i in range(0, count, PORTS_PER_AGENT):
+            for attempt in range(3):
+                chunk = sorted({free_udp_port() for _ in range(2 * PORTS_PER_AGENT)})
+                chunk = chunk[: min(PORTS_PER_AGENT, count - i)]
+                sub = workdir / f"agent{i // PORTS_PER_AGENT}-{attempt}"
+                sub.mkdir()
+                try:
+                    agents.append(start_agent(sub, chunk, dataset))
+                except RuntimeError:
+                    if attempt == 2:
+                        raise
+                    continue
+                ports += chunk
+                break
     except BaseException:
         stop_agents(agents)
         raise
-    return agents
+    return agents, ports
 
 
 def stop_agents(agents: list[subprocess.Popen[bytes]]) -> None:
@@ -87,7 +104,9 @@ def start_agent(workdir: Path, ports: list[int], dataset: str) -> subprocess.Pop
                              capture_output=True).returncode:  # fmt: skip
             if proc.poll() is not None or time.monotonic() > deadline:
                 proc.terminate()
-                raise RuntimeError("snmpd did not start")
+                proc.wait(30)
+                log = (workdir / "snmpd.log").read_text()[-500:]
+                raise RuntimeError(f"snmpd did not start: {log}")
             time.sleep(0.5)
     return proc
 
@@ -161,9 +180,8 @@ def main() -> int:
     for size in sizes:
         runs = []
         for _ in range(args.runs):
-            ports = sorted({free_udp_port() for _ in range(size * 2)})[:size]
             with tempfile.TemporaryDirectory() as tmp:
-                agents = start_agents(Path(tmp), ports, dataset)
+                agents, ports = start_agents(Path(tmp), size, dataset)
                 try:
                     runs.append(asyncio.run(fleet(ports, args.interval, args.cycles,
                                                   not args.pysnmp)))  # fmt: skip

@@ -30,6 +30,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
+from typing import TypeVar
 
 from lightwarden.collector.eeprom import ModuleMap, decode
 from lightwarden.collector.readings import OpticIdentity, Quantity, ReadingBatch, Thresholds
@@ -43,14 +44,16 @@ THRESHOLD_CHECKS = {"SFF-8472": ("CC_DMI",), "SFF-8636": (), "CMIS": ("page 02h"
 OMA_ROW_NOTE = "module reports Rx power as OMA, not average power (memory map)"
 
 
+K = TypeVar("K")
+
 #: How long a module's decoded map is trusted before it is read again (its status flags
 #: are live bits; the rest rarely changes). A map with a flag set is read every poll, so a
 #: flag that clears is seen at once. Our choice: 15 minutes.
 MAP_REFRESH_S = 900.0
 
 
-def stale_maps(cache: Mapping[object, MapFacts], read_at: Mapping[object, float], now: float,
-               keys: Iterable[object]) -> list[object]:
+def stale_maps(cache: Mapping[K, MapFacts], read_at: Mapping[K, float], now: float,
+               keys: Iterable[K]) -> list[K]:
     """Which of ``keys`` need their map read now: never read, flagged, or older than
     ``MAP_REFRESH_S``."""
     out = []

@@ -37,6 +37,7 @@ from lightwarden.rules.findings import (
     Assessment,
     Condition,
     Edge,
+    Severity,
     WindowSource,
     alert_key,
     derive_edge,
@@ -135,14 +136,14 @@ def judge(
         # The declared levels, every quantity.
         level_c = np.full(n, int(Condition.HEALTHY), dtype=np.int8)
         level_e = np.zeros(n, dtype=np.int8)
-        for past, cond, edge in (
+        for past, cond, which in (
             (value < lo_w + shrink, Condition.WARNING, Edge.LOW_WARNING),
             (value > hi_w - shrink, Condition.WARNING, Edge.HIGH_WARNING),
             (value < lo_a + shrink, Condition.ALARM, Edge.LOW_ALARM),
             (value > hi_a - shrink, Condition.ALARM, Edge.HIGH_ALARM),
         ):
             level_c[past] = cond
-            level_e[past] = edge
+            level_e[past] = which
 
     take_level = SEVERITY_OF[level_c] > SEVERITY_OF[margin_c]
     condition = np.where(take_level, level_c, margin_c).astype(np.int8)
@@ -220,6 +221,7 @@ def assess(
     table = np.array([w.edges for w in windows], dtype=np.float64).reshape(-1, 6)
     src6 = np.array([[int(x) for x in w.sources] for w in windows], dtype=np.int8).reshape(-1, 6)
     src_table = np.array([int(w.source) for w in windows], dtype=np.int8)
+    oma_table = np.array([w.oma_equivalent_dbm for w in windows], dtype=np.float64)
     edges = table[row_win] if n else np.zeros((0, 6))
     edge_sources = src6[row_win] if n else np.zeros((0, 6), dtype=np.int8)
     source = src_table[row_win] if n else np.empty(0, dtype=np.int8)
@@ -265,6 +267,7 @@ def assess(
     cause = _near_end_transmitters(batch, dark & (q == _TX), (instant, strict), instant_edge,
                                    note)
     _module_flags(batch, (instant, strict), instant_edge, note)
+    _lane_spread(batch, resolver, (instant, strict), instant_edge, note)
 
     unjudged = ok & (source == WindowSource.NONE)
     note(unjudged, NO_WINDOW_NOTE)
@@ -308,6 +311,7 @@ def assess(
         edge_source=edge_source,
         edge_margin_db=edge_margin,
         cause=cause,
+        oma_equivalent_dbm=oma_table[row_win] if n else np.zeros(0),
     )
 
 
@@ -402,32 +406,79 @@ def _module_flags(
 
     for o, opt in flagged:
         for name, lane in sorted(opt.flags):
+            row: int | None
             if name == "tx_fault":
-                r = rows.get((o, _TX, lane))
-                if r is not None:
-                    mark(r, Condition.TX_FAULT, TX_FAULT_FLAG_NOTE)
+                row = rows.get((o, _TX, lane))
+                if row is not None:
+                    mark(row, Condition.TX_FAULT, TX_FAULT_FLAG_NOTE)
             elif name == "rx_los":
-                r = rows.get((o, _RX, lane))
-                if r is not None and batch.status[r] == ReadingStatus.OK:
-                    mark(r, Condition.LOSS_OF_SIGNAL, LOS_FLAG_NOTE)
+                row = rows.get((o, _RX, lane))
+                if row is not None and batch.status[row] == ReadingStatus.OK:
+                    mark(row, Condition.LOSS_OF_SIGNAL, LOS_FLAG_NOTE)
             else:
                 label, _, level = name.rpartition("_")
                 quantity = _FLAG_QUANTITY.get(label.rsplit("_", 1)[0])
                 if quantity is None or level not in ("alarm", "warning"):
                     continue
-                r = rows.get((o, int(quantity), lane))
-                if r is None or batch.status[r] != ReadingStatus.OK:
+                row = rows.get((o, int(quantity), lane))
+                if row is None or batch.status[row] != ReadingStatus.OK:
                     continue
                 latched = Condition.LATCHED_ALARM if level == "alarm" else Condition.LATCHED_WARNING
-                mark(r, latched, LATCHED_NOTE.format(name.replace("_", " ")),
+                mark(row, latched, LATCHED_NOTE.format(name.replace("_", " ")),
                      only_if_milder=True)
         if opt.module_state not in ("", "ready"):
             for q in (Quantity.TEMPERATURE, Quantity.SUPPLY):
-                r = rows.get((o, int(q), 0))
-                if r is not None:
-                    mark(r, Condition.NOT_READY, NOT_READY_NOTE.format(opt.module_state),
+                row = rows.get((o, int(q), 0))
+                if row is not None:
+                    mark(row, Condition.NOT_READY, NOT_READY_NOTE.format(opt.module_state),
                          only_if_milder=True)
                     break
+
+
+LANE_SPREAD_NOTE = ("{q} lanes differ by {spread:.1f} dB, more than the {bound:.1f} dB the "
+                    "standard allows between any two lanes ({pmd}; it states OMA, the "
+                    "readings are average power)")
+
+
+def _lane_spread(
+    batch: ReadingBatch,
+    resolver: WindowResolver,
+    judged: tuple[np.ndarray, ...],
+    edge: np.ndarray,
+    note: Callable[[np.ndarray, str], None],
+) -> None:
+    """LANE_IMBALANCE on the weakest lane where lanes differ by more than the PMD row's
+    bound, when that lane's own judgement is milder (a weak lane already near
+    sensitivity says so itself)."""
+    multi = [o for o, opt in enumerate(batch.optics) if opt.lanes > 1]
+    if not multi or len(batch) == 0:
+        return
+    ok = batch.status == ReadingStatus.OK
+    for o in multi:
+        pmd = resolver(batch.optics[o]).pmd
+        if pmd is None:
+            continue
+        for q, bound in ((_RX, pmd.lane_spread_rx_db), (_TX, pmd.lane_spread_tx_db)):
+            if bound is None:
+                continue
+            rows = np.flatnonzero((batch.optic == o) & (batch.quantity == q) & ok
+                                  & (batch.lane > 0))
+            if rows.size < 2:
+                continue
+            values = batch.value[rows]
+            spread = float(values.max() - values.min())
+            if spread <= bound:
+                continue
+            weakest = int(rows[int(np.argmin(values))])
+            if SEVERITY_OF[judged[0][weakest]] >= Severity.WARNING:
+                continue
+            for arr in judged:
+                arr[weakest] = Condition.LANE_IMBALANCE
+            edge[weakest] = Edge.NONE
+            one = np.zeros(len(batch), dtype=bool)
+            one[weakest] = True
+            note(one, LANE_SPREAD_NOTE.format(q="Rx" if q == _RX else "Tx", spread=spread,
+                                              bound=bound, pmd=pmd.name))
 
 
 def _worst_per_optic(batch: ReadingBatch, condition: np.ndarray) -> np.ndarray:

@@ -43,6 +43,7 @@ class Condition(IntEnum):
     NOT_READY = 13  # a CMIS module that is not in its ready state
     LATCHED_ALARM = 14  # the module latched an alarm flag since it was last read
     LATCHED_WARNING = 15  # the module latched a warning flag since it was last read
+    LANE_IMBALANCE = 16  # lanes of one optic differ by more than the standard allows
 
     @property
     def word(self) -> str:
@@ -115,6 +116,7 @@ _SEVERITY = {
     Condition.NOT_READY: Severity.WARNING,
     Condition.LATCHED_ALARM: Severity.WARNING,
     Condition.LATCHED_WARNING: Severity.INFO,
+    Condition.LANE_IMBALANCE: Severity.WARNING,
 }
 
 #: severity per condition code, for vectorised sorting and "which rows may alert";
@@ -245,6 +247,8 @@ class Assessment:
     edge_source: np.ndarray | None = None  # int8 (WindowSource)
     edge_margin_db: np.ndarray | None = None  # float64, power rows
     cause: dict[int, str] = field(default_factory=dict)
+    #: Rx rows: the standard's OMA sensitivity as average power (derived, never judged)
+    oma_equivalent_dbm: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         # Assessments built by hand (tests, benchmarks) give only the margin edges; fill

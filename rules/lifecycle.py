@@ -61,6 +61,7 @@ ALERTNAMES: dict[Condition, str] = {
     Condition.LOSS_OF_SIGNAL: "OpticLossOfSignal",
     Condition.NOT_READY: "OpticModuleNotReady",
     Condition.LATCHED_ALARM: "OpticLatchedAlarm",
+    Condition.LANE_IMBALANCE: "OpticLaneImbalance",
 }
 
 #: Conditions that raise an alert: severity warning or critical.

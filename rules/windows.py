@@ -39,10 +39,10 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from lightwarden.collector.readings import OpticIdentity, Quantity, Thresholds
-from lightwarden.rules.catalogue import Catalogue, PmdSpec
+from lightwarden.rules.catalogue import NOT_JUDGED, Catalogue, PmdSpec
 from lightwarden.rules.findings import EDGE_COLUMNS, WindowSource
 
 NAN = math.nan
@@ -153,6 +153,9 @@ class Window:
     high_warning: float = NAN
     sources: tuple[WindowSource, ...] = _NONE6
     note: str = ""
+    #: Rx only: the standard's OMA sensitivity as an average power at its minimum
+    #: extinction ratio. Derived and never binding: shown beside the judged edges.
+    oma_equivalent_dbm: float = NAN
 
     @property
     def source(self) -> WindowSource:
@@ -184,8 +187,10 @@ def total_window(window: Window, lanes: int) -> Window:
     shift = 10.0 * math.log10(lanes)
     note = (f"total power of {lanes} lanes: judged against the per-lane edges "
             f"+{shift:.1f} dB (assumes equal lanes; a weak lane can hide in a total)")
-    return Window(*(e + shift for e in window.edges), sources=window.sources,
-                  note="; ".join(t for t in (window.note, note) if t))
+    lo, hi, lo_a, hi_a, lo_w, hi_w = (e + shift for e in window.edges)
+    return Window(lo, hi, lo_a, hi_a, lo_w, hi_w, sources=window.sources,
+                  note="; ".join(t for t in (window.note, note) if t),
+                  oma_equivalent_dbm=window.oma_equivalent_dbm + shift)
 
 
 @dataclass(slots=True, frozen=True)
@@ -276,10 +281,15 @@ def _module_edges(
     return edges, ""
 
 
-def _pmd_edges(quantity: Quantity, pmd: PmdSpec | None) -> tuple[float | None, ...]:
+def _pmd_edges(quantity: Quantity, pmd: PmdSpec | None, oma: bool = False
+               ) -> tuple[float | None, ...]:
     if pmd is None:
         return (None, None, None, None)
     if quantity is Quantity.RX_POWER:
+        if oma:
+            # Judged in its own terms: the standard's OMA sensitivity where it states one;
+            # its overload is an average power, so no high edge from the standard.
+            return (pmd.rx_sens_oma_dbm, None, None, None)
         return (pmd.rx_min_avg_dbm, pmd.rx_overload_dbm, None, None)
     if quantity is Quantity.TX_POWER:
         return (pmd.tx_min_dbm, pmd.tx_max_dbm, None, None)
@@ -388,19 +398,38 @@ def _resolve_quantity(
     module, module_note = _module_edges(quantity, optic.thresholds.get(quantity))
     if module_note:
         notes.append(module_note)
-    pmd_edges = _pmd_edges(quantity, pmd)
     oma = optic.rx_power_type.strip().lower() == "oma"
-    if quantity is Quantity.RX_POWER and oma:
-        if any(v is not None for v in pmd_edges):
+    pmd_edges = _pmd_edges(quantity, pmd, oma)
+    if quantity is Quantity.RX_POWER and oma and pmd is not None:
+        if pmd_edges[0] is None and pmd.rx_min_avg_dbm is not None:
             declared = [o.edges()[:2] for o in site] + [module[:2]]
             if not all(any(e[k] is not None for e in declared) for k in (0, 1)):
                 notes.append(OMA_NOTE)
-        pmd_edges = (None, None, None, None)
+        elif pmd_edges[0] is not None:
+            notes.append(f"Rx judged in OMA: the standard's {pmd.name} OMA sensitivity "
+                         f"{pmd_edges[0]:.1f} dBm ({pmd.oma_clause or pmd.clause or 'IEEE 802.3'})")
     if quantity is Quantity.RX_POWER and pmd is not None and not oma:
         _note_looser_module(module, pmd, notes)
-    if optic.pmd and pmd is None and quantity in (Quantity.RX_POWER, Quantity.TX_POWER):
-        notes.append(f"PMD {optic.pmd!r} is not in the PMD table")
-    return _merge(quantity, site, module, pmd_edges, notes)
+    if quantity in (Quantity.RX_POWER, Quantity.TX_POWER) and optic.pmd:
+        if pmd is None:
+            notes.append(_unknown_pmd_note(optic.pmd))
+        elif not pmd.has_power_figures:
+            notes.append(f"the PMD table names {pmd.name} ({pmd.source}) but holds no power "
+                         "levels for it: judged by the module's own levels")
+    window = _merge(quantity, site, module, pmd_edges, notes)
+    if quantity is Quantity.RX_POWER and pmd is not None and not oma:
+        derived = pmd.rx_sens_avg_from_oma_dbm
+        if derived is not None:
+            # Shown beside the average edges, never judged (see PmdSpec).
+            window = replace(window, oma_equivalent_dbm=derived)
+    return window
+
+
+def _unknown_pmd_note(pmd: str) -> str:
+    reason = NOT_JUDGED.get(pmd.strip().upper())
+    if reason:
+        return f"PMD {pmd!r} is not judged against the PMD table: {reason}"
+    return f"PMD {pmd!r} is not in the PMD table"
 
 
 def _note_looser_module(module: tuple[float | None, ...], pmd: PmdSpec, notes: list[str]) -> None:
@@ -420,9 +449,13 @@ def _note_looser_module(module: tuple[float | None, ...], pmd: PmdSpec, notes: l
 
 
 def _resolve(
-    optic: OpticIdentity, catalogue: Catalogue, matched: Sequence[WindowOverride]
+    optic: OpticIdentity, catalogue: Catalogue, matched: Sequence[WindowOverride],
+    fibre: str | None = None,
 ) -> OpticWindows:
-    pmd = catalogue.lookup(optic.pmd) if optic.pmd else None
+    # The row for the plant's fibre (1000BASE-LX launches less on multimode) and, for a
+    # direction-less BiDi name, the direction the module's wavelength says.
+    pmd = catalogue.lookup(optic.pmd, fibre=fibre, wavelength_nm=optic.wavelength_nm) \
+        if optic.pmd else None
     by_quantity = []
     lane_specific: dict[Quantity, set[int]] = {}
     for o in matched:
@@ -443,14 +476,18 @@ def resolve_windows(
     optic: OpticIdentity,
     catalogue: Catalogue,
     overrides: Iterable[WindowOverride] | OverrideIndex = (),
+    fibre: str | None = None,
 ) -> OpticWindows:
-    """All windows of one optic, with the source of every edge."""
+    """All windows of one optic, with the source of every edge; ``fibre`` is the plant's
+    fibre at its port (a kind or grade), when recorded."""
     index = overrides if isinstance(overrides, OverrideIndex) else OverrideIndex(overrides)
-    return _resolve(optic, catalogue, [index.overrides[i] for i in index.matching(optic)])
+    return _resolve(optic, catalogue, [index.overrides[i] for i in index.matching(optic)],
+                    fibre)
 
 
 # (PMD, Rx power type, module thresholds, indices of the matching overrides)
-_CacheKey = tuple[str, str, tuple[tuple[Quantity, Thresholds], ...], tuple[int, ...]]
+_CacheKey = tuple[str, str, tuple[tuple[Quantity, Thresholds], ...], tuple[int, ...],
+                  str | None, float | None]
 
 
 class WindowResolver:
@@ -461,17 +498,21 @@ class WindowResolver:
     one when the config changes.
     """
 
-    __slots__ = ("_cache", "catalogue", "index", "max_entries")
+    __slots__ = ("_cache", "catalogue", "fibre_of", "index", "max_entries")
 
     def __init__(
         self,
         catalogue: Catalogue,
         overrides: Iterable[WindowOverride] | OverrideIndex = (),
         max_entries: int = 65536,
+        fibre_of: Mapping[tuple[str, str], str] | None = None,
     ) -> None:
         self.catalogue = catalogue
         self.index = overrides if isinstance(overrides, OverrideIndex) else OverrideIndex(overrides)
         self.max_entries = max_entries
+        #: The plant's fibre per (device, port), so a PMD with rows per fibre type is
+        #: judged by the row for the fibre it is on.
+        self.fibre_of: Mapping[tuple[str, str], str] = fibre_of or {}
         self._cache: dict[_CacheKey, OpticWindows] = {}
 
     def __call__(self, optic: OpticIdentity) -> OpticWindows:
@@ -483,6 +524,8 @@ class WindowResolver:
             # different order only costs a duplicate entry.
             tuple(optic.thresholds.items()),
             matched,
+            self.fibre_of.get((optic.device, optic.port)) if self.fibre_of else None,
+            optic.wavelength_nm,
         )
         cacheable = True
         try:
@@ -490,7 +533,8 @@ class WindowResolver:
         except TypeError:  # unhashable threshold values: resolve without caching
             found, cacheable = None, False
         if found is None:
-            found = _resolve(optic, self.catalogue, [self.index.overrides[i] for i in matched])
+            found = _resolve(optic, self.catalogue, [self.index.overrides[i] for i in matched],
+                             key[4])
             if cacheable:
                 if len(self._cache) >= self.max_entries:
                     self._cache.clear()

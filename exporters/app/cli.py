@@ -70,7 +70,7 @@ def run_check(monitor: Monitor, as_json: bool) -> int:
         if v.assessment is None:
             failures.append(failed_device_row(v.outcome))
         else:
-            rows.extend(optic_rows(v.assessment, monitor.targets))
+            rows.extend(optic_rows(v.assessment, monitor.targets, v.contexts))
     worst_first(rows, monitor.targets)
     if as_json:
         doc: Any = [r.as_json() for r in rows]
@@ -440,6 +440,13 @@ def build_parser() -> argparse.ArgumentParser:
     ru = sub.add_parser("rules", help="write Prometheus alerting rules for our metrics")
     rules_parser(ru)
     ru.set_defaults(func=cmd_rules)
+
+    from lightwarden.exporters.pages.budget import build_parser as budget_parser
+    from lightwarden.exporters.pages.budget import run as budget_run
+
+    bu = sub.add_parser("budget", help="power budget of a planned link: will it close, which pad")
+    budget_parser(bu)
+    bu.set_defaults(func=budget_run)
     return p
 
 

@@ -152,6 +152,18 @@ class PmdAddition(_Model):
     rx_overload_dbm: float
     rx_min_avg_dbm: float
     source: str = "site"
+    # Optional PMD-table columns (rules/README.md "The PMD table").
+    clause: str = ""
+    fibre: Literal["smf", "mmf"] | None = None
+    reach_om1_m: float | None = Field(default=None, gt=0)
+    reach_om2_m: float | None = Field(default=None, gt=0)
+    reach_om3_m: float | None = Field(default=None, gt=0)
+    reach_om4_m: float | None = Field(default=None, gt=0)
+    reach_engineered_m: float | None = Field(default=None, gt=0)
+    tx_oma_min_dbm: float | None = None
+    rx_sens_oma_dbm: float | None = None
+    er_min_db: float | None = Field(default=None, gt=0)
+    oma_clause: str = ""
 
 
 class Span(_Model):

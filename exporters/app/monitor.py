@@ -26,7 +26,7 @@ from lightwarden.exporters.store.gather import history_advice_context
 from lightwarden.exporters.store.history import History, HistoryError
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets, assess
-from lightwarden.rules.catalogue import Catalogue
+from lightwarden.rules.catalogue import Catalogue, PmdSpec
 from lightwarden.rules.findings import (
     SEVERITY_OF,
     AlertEvent,
@@ -40,7 +40,7 @@ from lightwarden.rules.hysteresis import ConditionTracker
 from lightwarden.rules.lifecycle import AlertLifecycle
 from lightwarden.rules.outlook import RxWindow
 from lightwarden.rules.plant import Plant
-from lightwarden.rules.spanloss import LinkIssue, check_link
+from lightwarden.rules.spanloss import LinkIssue, check_link, engineered_loss_db
 from lightwarden.rules.windows import WindowResolver
 
 log = logging.getLogger("lightwarden.monitor")
@@ -49,6 +49,16 @@ _AGEING = (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS)
 #: Conditions of a far transmitter that explain a dark receiver.
 _TX_CAUSES = (Condition.LASER_OFF, Condition.TX_FAULT, Condition.DARK)
 AlertSink = Callable[[list[AlertEvent]], None]
+
+
+def _merged(base: AdviceContext, extra: AdviceContext) -> AdviceContext:
+    """``base`` (history facts) with every far-end and pad fact ``extra`` knows."""
+    changes = {f: getattr(extra, f) for f in (
+        "far_device", "far_port", "far_tx_dbm", "far_tx_condition", "far_tx_min_dbm",
+        "far_tx_max_dbm", "far_window_from", "span_loss_db", "span_loss_from",
+        "own_tx_min_dbm", "own_tx_max_dbm", "hysteresis_db")
+        if getattr(extra, f) not in (None, "")}
+    return replace(base, **changes)
 
 
 def _edge(x: float) -> float | None:
@@ -162,24 +172,24 @@ class Monitor:
             self.self_metrics.observe_poll(outcome.duration_s, outcome.ok)
         assessment = None
         events: list[AlertEvent] = []
+        far: dict[tuple[str, int, Quantity], AdviceContext] = {}
         if outcome.batch is not None:
             assessment = assess(outcome.batch, targets=self.targets, tracker=self.parts.tracker,
                                 now=now, resolver=self.parts.resolver)
             far = self._far_ends(assessment)
+            far.update(self._pad_facts(assessment))
             if self.history is not None:
                 self._record(assessment)
             if self._alerts_enabled:
                 context = self._context(assessment, now)
                 for k, ctx in far.items():
-                    context[k] = replace(context[k], far_device=ctx.far_device,
-                                         far_port=ctx.far_port, far_tx_dbm=ctx.far_tx_dbm,
-                                         far_tx_condition=ctx.far_tx_condition) \
-                        if k in context else ctx
+                    context[k] = _merged(context[k], ctx) if k in context else ctx
                 events = self.lifecycle.observe(assessment, now, context)
         elif self._alerts_enabled:
             events = self.lifecycle.mark_stale(outcome.device, now)
         self.exposition.update(outcome, assessment)
-        view = self._views[outcome.device] = DeviceView(outcome, assessment)
+        view = self._views[outcome.device] = DeviceView(
+            outcome, assessment, far if outcome.batch is not None else {})
         if events and self.alert_sink is not None:
             self.alert_sink(events)
         return view
@@ -227,6 +237,69 @@ class Monitor:
             if tx_cond in _TX_CAUSES:
                 a.cause[i] = alert_key(far_dev, far_port, lane, Quantity.TX_POWER)
         return out
+
+    def _pad_facts(self, a: Assessment) -> dict[tuple[str, int, Quantity], AdviceContext]:
+        """For each receiver on the overload side: what a worst-case pad must know (the
+        far transmitter's window, the span loss this way, this optic's own window)."""
+        out: dict[tuple[str, int, Quantity], AdviceContext] = {}
+        b = a.batch
+        hot = np.flatnonzero((b.quantity == int(Quantity.RX_POWER)) & np.isin(
+            a.condition, [int(Condition.NEAR_OVERLOAD), int(Condition.OVERLOADED),
+                          int(Condition.WARNING), int(Condition.ALARM)]))
+        for i in hot.tolist():
+            optic = b.optics[int(b.optic[i])]
+            lane, rx = int(b.lane[i]), float(b.value[i])
+            own = self.catalogue.lookup(optic.pmd) if optic.pmd else None
+            facts: dict[str, object] = {}
+            if own is not None:
+                facts.update(own_tx_min_dbm=own.tx_min_dbm, own_tx_max_dbm=own.tx_max_dbm)
+            ref = self.plant.far_end(b.device, optic.port)
+            if ref is not None:
+                far_dev, far_port = ref
+                facts.update(far_device=far_dev, far_port=far_port)
+                lo, hi, where = self._far_window(far_dev, far_port, own)
+                facts.update(far_tx_min_dbm=lo, far_tx_max_dbm=hi, far_window_from=where)
+                tx_dbm, _ = self._far_tx(far_dev, far_port, lane)
+                if tx_dbm is not None and np.isfinite(rx):
+                    facts.update(span_loss_db=tx_dbm - rx, span_loss_from="measured",
+                                 far_tx_dbm=tx_dbm)
+                else:
+                    loss = self._engineered(far_dev, far_port, b.device, optic.port)
+                    if loss is not None:
+                        facts.update(span_loss_db=loss, span_loss_from="engineered")
+            facts["hysteresis_db"] = self.parts.tracker.policy.hysteresis_db
+            out[(optic.port, lane, Quantity.RX_POWER)] = AdviceContext(**facts)  # type: ignore[arg-type]
+        return out
+
+    def _far_window(self, device: str, port: str, fallback: PmdSpec | None
+                    ) -> tuple[float | None, float | None, str]:
+        """The far transmitter's launch window: its PMD row, else its module's Tx alarms,
+        else (not polled yet) this end's PMD row, saying which."""
+        view = self._views.get(device)
+        batch = view.outcome.batch if view is not None else None
+        optic = next((o for o in batch.optics if o.port == port), None) if batch else None
+        if optic is not None:
+            spec = self.catalogue.lookup(optic.pmd) if optic.pmd else None
+            if spec is not None and spec.tx_min_dbm is not None:
+                return spec.tx_min_dbm, spec.tx_max_dbm, f"{spec.name} standard"
+            t = optic.thresholds.get(Quantity.TX_POWER)
+            if t is not None and t.low_alarm is not None:
+                return t.low_alarm, t.high_alarm, "its module's Tx alarms"
+        if fallback is not None and fallback.tx_min_dbm is not None:
+            return fallback.tx_min_dbm, fallback.tx_max_dbm, (
+                f"assumed {fallback.name}, as this end")
+        return None, None, ""
+
+    def _engineered(self, tx_dev: str, tx_port: str, rx_dev: str, rx_port: str
+                    ) -> float | None:
+        for sp in self.plant.spans:
+            ends = {(sp.a_device, sp.a_port), (sp.b_device, sp.b_port)}
+            if ends == {(tx_dev, tx_port), (rx_dev, rx_port)}:
+                try:
+                    return engineered_loss_db(sp)
+                except ValueError:
+                    return None
+        return None
 
     def _far_tx(self, device: str, port: str, lane: int) -> tuple[float | None, Condition | None]:
         view = self._views.get(device)

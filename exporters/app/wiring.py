@@ -32,7 +32,7 @@ def build_catalogue(cfg: SiteConfig) -> Catalogue:
     return base.with_additions(
         PmdSpec(
             name=a.name,
-            clause="",
+            clause=a.clause,
             wavelength_min_nm=a.wavelength_min_nm,
             wavelength_max_nm=a.wavelength_max_nm,
             reach_m=a.reach_m,
@@ -42,6 +42,16 @@ def build_catalogue(cfg: SiteConfig) -> Catalogue:
             rx_overload_dbm=a.rx_overload_dbm,
             rx_min_avg_dbm=a.rx_min_avg_dbm,
             source=a.source,
+            fibre=a.fibre or "",
+            reach_om1_m=a.reach_om1_m,
+            reach_om2_m=a.reach_om2_m,
+            reach_om3_m=a.reach_om3_m,
+            reach_om4_m=a.reach_om4_m,
+            reach_engineered_m=a.reach_engineered_m,
+            tx_oma_min_dbm=a.tx_oma_min_dbm,
+            rx_sens_oma_dbm=a.rx_sens_oma_dbm,
+            er_min_db=a.er_min_db,
+            oma_clause=a.oma_clause,
         )
         for a in cfg.pmd_additions
     )
@@ -173,6 +183,16 @@ def make_sources(cfg: SiteConfig, base_dir: Path, catalogue: Catalogue,
     return build_sources(cfg, my_devices(cfg), ctx)
 
 
+def fibre_of(cfg: SiteConfig) -> dict[tuple[str, str], str]:
+    """The plant's fibre at each recorded port: which row of a PMD judges its optic."""
+    out: dict[tuple[str, str], str] = {}
+    for sp in cfg.plant:
+        for end in (sp.a, sp.b):
+            device, port = end.split()
+            out[(device, port)] = sp.fibre
+    return out
+
+
 def build_monitor(
     cfg: SiteConfig,
     *,
@@ -189,7 +209,7 @@ def build_monitor(
     parts = MonitorParts(
         site=cfg.site,
         catalogue=catalogue,
-        resolver=WindowResolver(catalogue, build_overrides(cfg)),
+        resolver=WindowResolver(catalogue, build_overrides(cfg), fibre_of=fibre_of(cfg)),
         targets=targets,
         tracker=ConditionTracker(hysteresis_policy(cfg)),
         lifecycle=lifecycle or AlertLifecycle(lifecycle_config(cfg, targets)),

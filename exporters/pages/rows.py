@@ -8,10 +8,11 @@ margins, where the window came from, and the worst condition among them.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 from lightwarden.collector.readings import LANE_QUANTITIES, PollOutcome, Quantity, ReadingStatus
-from lightwarden.rules.advice import advise
+from lightwarden.rules.advice import AdviceContext, advise
 from lightwarden.rules.assess import MarginTargets
 from lightwarden.rules.findings import (
     EDGE_COLUMNS,
@@ -50,6 +51,7 @@ class OpticRow:
     #: The edge the worst condition is about: quantity, name, value, source, margin
     edge: dict[str, object] = field(default_factory=dict)
     cause: str = ""  # alert key of the reading that explains this one ("" if its own)
+    pad_db: float | None = None  # the fixed attenuator the advice names, if any
     condition: str = Condition.HEALTHY.word
     severity: Severity = Severity.NONE
     notes: list[str] = field(default_factory=list)
@@ -111,8 +113,11 @@ _STATUS_WORDS = {
 }
 
 
-def optic_rows(assessment: Assessment, targets: MarginTargets | None = None) -> list[OpticRow]:
-    """Wide rows, each with advice for its worst condition (margin ``targets`` for pads)."""
+def optic_rows(assessment: Assessment, targets: MarginTargets | None = None,
+               contexts: Mapping[tuple[str, int, Quantity], AdviceContext] | None = None,
+               ) -> list[OpticRow]:
+    """Wide rows, each with advice for its worst condition (margin ``targets`` for pads;
+    ``contexts`` the far-end and span facts the monitor gathered, as the alerts use)."""
     targets = targets or MarginTargets()
     batch = assessment.batch
     rows: dict[tuple[int, int], OpticRow] = {}
@@ -146,7 +151,7 @@ def optic_rows(assessment: Assessment, targets: MarginTargets | None = None) -> 
                 row.notes.append(text)
     for row in rows.values():
         if row.severity >= Severity.WARNING:
-            _advise(row, assessment, targets)
+            _advise(row, assessment, targets, contexts or {})
     return list(rows.values())
 
 
@@ -159,7 +164,8 @@ def cause_words(key: str) -> str:
     return f"{device} {port} lane {lane} {quantity.replace('_', ' ')}"
 
 
-def _advise(row: OpticRow, a: Assessment, targets: MarginTargets) -> None:
+def _advise(row: OpticRow, a: Assessment, targets: MarginTargets,
+            contexts: Mapping[tuple[str, int, Quantity], AdviceContext]) -> None:
     i = row.worst_row
     b = a.batch
     cause = a.cause.get(i)
@@ -167,9 +173,12 @@ def _advise(row: OpticRow, a: Assessment, targets: MarginTargets) -> None:
         row.advice = (f"Explained by {cause_words(cause)}: act on that reading; this one "
                       "follows it.")
         return
-    advice = advise(Condition(int(a.condition[i])), Quantity(int(b.quantity[i])),
+    q = Quantity(int(b.quantity[i]))
+    advice = advise(Condition(int(a.condition[i])), q,
                     float(b.value[i]), low_edge=float(a.low_edge[i]),
-                    high_edge=float(a.high_edge[i]), targets=targets)
+                    high_edge=float(a.high_edge[i]), targets=targets,
+                    context=contexts.get((row.port, int(b.lane[i]), q)))
+    row.pad_db = advice.pad_db
     row.advice, row.caution = advice.text, advice.caution
 
 
@@ -194,6 +203,10 @@ def _fold(row: OpticRow, a: Assessment, i: int) -> None:
                                     a.edge_sources[i].tolist(), strict=True)
             if not math.isnan(v)
         }
+        if a.oma_equivalent_dbm is not None and not math.isnan(a.oma_equivalent_dbm[i]):
+            # beside the judged edges, marked derived: never an edge (rules/catalogue.py)
+            row.rx_edges["sensitivity_from_oma"] = {
+                "value": float(a.oma_equivalent_dbm[i]), "source": "standard, derived"}
         row.rx_overload_dbm = _num(float(a.high_edge[i]))
         row.rx_sensitivity_dbm = _num(float(a.low_edge[i]))
         row.margin_to_overload_db = _num(float(a.margin_high_db[i]))

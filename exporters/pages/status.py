@@ -10,6 +10,7 @@ import json
 import time
 from html import escape
 
+from lightwarden.exporters.pages.budget import mount as mount_budget
 from lightwarden.exporters.pages.http import HttpRequest, HttpServer, Response
 from lightwarden.exporters.pages.report import build_report, render_report, report_json
 from lightwarden.exporters.pages.rows import OpticRow, optic_rows, worst_first
@@ -40,6 +41,7 @@ class StatusPage:
         server.add_route("/api/optics", self.api)
         server.add_route("/report", self.report_text)
         server.add_route("/api/report", self.report_api)
+        mount_budget(server)
 
     def rows(self) -> tuple[list[OpticRow], list[dict[str, object]]]:
         rows: list[OpticRow] = []
@@ -50,7 +52,7 @@ class StatusPage:
                             "error": o.error, "error_kind": o.error_kind,
                             "polled_at": o.started_at})
             if view.assessment is not None:
-                rows.extend(optic_rows(view.assessment, self.monitor.targets))
+                rows.extend(optic_rows(view.assessment, self.monitor.targets, view.contexts))
         worst_first(rows, self.monitor.targets)
         return rows, devices
 

@@ -3,11 +3,12 @@
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Protocol
 
-from lightwarden.collector.readings import PollOutcome
+from lightwarden.collector.readings import PollOutcome, Quantity
 from lightwarden.exporters.store.history import History
+from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets
 from lightwarden.rules.findings import AlertEvent, Assessment
 from lightwarden.rules.plant import Plant
@@ -20,6 +21,9 @@ class DeviceView:
 
     outcome: PollOutcome
     assessment: Assessment | None
+    #: Facts from outside the poll the advice used (far end, span loss), by
+    #: (port, lane, quantity), so check and the page advise as the alerts do
+    contexts: Mapping[tuple[str, int, Quantity], AdviceContext] = field(default_factory=dict)
 
 
 class MonitorView(Protocol):

@@ -124,6 +124,11 @@ _CONDITION_TEXT: dict[Condition, tuple[str, str]] = {
     Condition.NOT_READY: (
         "The module is not in its ready state.",
         "Check the module's seating and the port configuration; reseat or replace it."),
+    Condition.LANE_IMBALANCE: (
+        "The lanes of this optic differ by more than the standard allows between any two "
+        "lanes (its weakest lane is named).",
+        "Inspect and clean the connectors (a multi-fibre connector can lose one fibre); for "
+        "Tx, the optic's own lane lasers differ: plan replacement of the optic."),
     Condition.LATCHED_ALARM: (
         "The module latched an alarm flag since it was last read: a transient excursion.",
         "Look at the readings' history around the time; watch for a repeat."),

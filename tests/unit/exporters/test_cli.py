@@ -30,7 +30,7 @@ JSON_FIELDS = {
 SEVERITY = {"healthy": 0, "unknown": 1, "latched_warning": 1, "near_sensitivity": 2,
             "near_overload": 2, "warning": 2, "off_standard": 2, "not_ready": 2,
             "latched_alarm": 2, "below_sensitivity": 3, "overloaded": 3, "alarm": 3, "dark": 3,
-            "laser_off": 3, "tx_fault": 3, "loss_of_signal": 3}
+            "laser_off": 3, "tx_fault": 3, "loss_of_signal": 3, "lane_imbalance": 2}
 
 
 def lightwarden(*args: str, env: dict[str, str] | None = None, timeout: float = 120,
@@ -149,7 +149,7 @@ def test_check_table_and_exit_zero_when_all_healthy(lab_process):
     site = _site(tmp, endpoints, "dist-a.yaml", devices=["qm-dist-a"])
     res = lightwarden("check", "-c", str(site), env=LAB_ENV)
     assert res.returncode == 0, res.stdout + res.stderr
-    lines = res.stdout.splitlines()
+    lines = res.stdout.split("\n\n")[0].splitlines()  # the table, before notes and advice
     assert lines[0].startswith("DEVICE")
     assert len(lines) == 1 + sum(
         p.optic.part.lanes for p in Lab.load().devices["qm-dist-a"].ports if p.optic

@@ -64,6 +64,7 @@ EXPECTED = {
     Condition.NOT_READY: Severity.WARNING,
     Condition.LATCHED_ALARM: Severity.WARNING,
     Condition.LATCHED_WARNING: Severity.INFO,
+    Condition.LANE_IMBALANCE: Severity.WARNING,
 }
 #: The status page's row colours (ours).
 PAGE_CLASS = {Severity.NONE: "ok", Severity.INFO: "unknown", Severity.WARNING: "warn",

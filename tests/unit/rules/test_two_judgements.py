@@ -174,3 +174,25 @@ def test_judgement_never_raises_on_any_batch(rows, edge):
     a = assess(b.build(0.0))
     assert a.condition.shape == (len(rows),)
     assert np.isin(a.condition, [int(c) for c in Condition]).all()
+
+
+def test_lanes_further_apart_than_the_standard_allows():
+    # 100GBASE-LR4: Rx overload +4.5, minimum average receive power -10.6 dBm per lane;
+    # receive power between any two lanes may differ by 5.5 dB (IEEE 802.3 cl.88, stated
+    # in OMA, from memory; pmd_catalogue.csv). Lanes at -1, -2, -2, -7.0 dBm: 6.0 dB apart.
+    b = BatchBuilder("qm-core-a")
+    o = b.add_optic(OpticIdentity(device="qm-core-a", port="qsfp1", pmd="100GBASE-LR4",
+                                  lanes=4, admin_up=True))
+    for lane, v in enumerate((-1.0, -2.0, -2.0, -7.0), start=1):
+        b.add(o, lane, RX, v)
+    a = assess(b.build(0.0))
+    # lane 4 is 3.6 dB above sensitivity (keeps the 3 dB target) but 6.0 dB below lane 1
+    assert [Condition(int(c)) for c in a.condition] == [C.HEALTHY] * 3 + [C.LANE_IMBALANCE]
+    assert "differ by 6.0 dB, more than the 5.5 dB" in a.notes[3]
+    # within the bound: nothing
+    b = BatchBuilder("qm-core-a")
+    o = b.add_optic(OpticIdentity(device="qm-core-a", port="qsfp1", pmd="100GBASE-LR4",
+                                  lanes=4, admin_up=True))
+    for lane, v in enumerate((-1.0, -2.0, -2.0, -6.0), start=1):
+        b.add(o, lane, RX, v)
+    assert set(assess(b.build(0.0)).condition.tolist()) == {int(C.HEALTHY)}

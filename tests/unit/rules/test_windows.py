@@ -184,26 +184,43 @@ def test_lane_specific_override():
 
 
 def test_oma_never_compared_with_average_power_pmd_edges():
+    # 10GBASE-LR: OMA sensitivity -12.6 dBm (IEEE 802.3 cl.52, pmd_catalogue.csv, from
+    # memory) is the standard's edge for an OMA-reporting module; no average edge at all.
     rx = resolve_windows(optic(rx_power_type="oma"), CAT).window(RX)
-    assert rx.source is WindowSource.NONE
-    assert OMA_NOTE in rx.note
+    assert rx.low_edge == -12.6 and math.isnan(rx.high_edge)
+    assert rx.edge_source("low_edge") is WindowSource.PMD_TABLE
+    assert "Rx judged in OMA" in rx.note
     # Tx power is average in every diagnostic map: the PMD Tx edges still apply.
     assert resolve_windows(optic(rx_power_type="OMA"), CAT).window(TX).low_edge == -8.2
+    # A PMD whose table row states no OMA sensitivity: no standard Rx edge, and why.
+    lx = resolve_windows(optic(pmd="1000BASE-LX", rx_power_type="oma"), CAT).window(RX)
+    assert lx.source is WindowSource.NONE and OMA_NOTE in lx.note
 
 
 def test_oma_uses_module_thresholds_in_the_same_terms():
     t = Thresholds(high_alarm=1.0, low_alarm=-13.0)
     rx = resolve_windows(optic(rx_power_type="oma", thresholds={RX: t}), CAT).window(RX)
-    assert (rx.low_edge, rx.high_edge) == (-13.0, 1.0)
-    assert rx.source is WindowSource.MODULE
+    assert (rx.low_edge, rx.high_edge) == (-12.6, 1.0)
+    assert (rx.low_alarm, rx.high_alarm) == (-13.0, 1.0)
+    assert rx.sources[:2] == (WindowSource.PMD_TABLE, WindowSource.MODULE)
     assert OMA_NOTE not in rx.note
 
 
 def test_oma_with_one_declared_edge_says_why_the_other_is_missing():
     t = Thresholds(high_alarm=1.0)
-    rx = resolve_windows(optic(rx_power_type="oma", thresholds={RX: t}), CAT).window(RX)
+    rx = resolve_windows(optic(pmd="1000BASE-LX", rx_power_type="oma", thresholds={RX: t}),
+                         CAT).window(RX)
     assert math.isnan(rx.low_edge) and rx.high_edge == 1.0
     assert OMA_NOTE in rx.note
+
+
+def test_average_rows_carry_the_derived_oma_equivalent_beside_them():
+    # P_avg = OMA (r+1) / (2 (r-1)) at the minimum extinction ratio r (IEEE 802.3 52.9
+    # definitions, from memory): -12.6 dBm OMA at 3.5 dB is about -11.4 dBm average,
+    # 3 dB above the -14.4 dBm average edge that stays the judged one.
+    rx = resolve_windows(optic(), CAT).window(RX)
+    assert rx.low_edge == -14.4
+    assert rx.oma_equivalent_dbm == pytest.approx(-11.44, abs=0.01)
 
 
 def test_oma_with_site_override():
@@ -275,3 +292,13 @@ def test_override_index_matching_order():
         WindowOverride(quantity=RX, part_number="HGL-10L-31", rx_sensitivity=-3.0),
     ])
     assert index.matching(optic()) == (1, 2, 0)  # least specific first
+
+
+def test_the_plants_fibre_picks_the_pmd_row():
+    # 1000BASE-LX launches at least -11.0 dBm on single-mode and -11.5 dBm on multimode
+    # fibre (IEEE 802.3 Table 38-7 via standards.md, verified).
+    lx = optic(pmd="1000BASE-LX")
+    assert resolve_windows(lx, CAT).window(TX).low_edge == -11.0
+    assert resolve_windows(lx, CAT, fibre="OM3").window(TX).low_edge == -11.5
+    resolver = WindowResolver(CAT, fibre_of={(lx.device, lx.port): "OM2"})
+    assert resolver(lx).window(TX).low_edge == -11.5

@@ -108,7 +108,23 @@ def test_requests_decode_in_pyasn1(community, request_id, reps, non_repeaters, o
 
 @given(st.integers(-(2**70), 2**70))
 def test_integer_encoding_is_pyasn1s(value):
-    assert wire.integer(value) == encoder.encode(univ.Integer(value))
+    ours = wire.integer(value)
+    assert int(decoder.decode(ours, asn1Spec=univ.Integer())[0]) == value
+    if value < 0 and (-value) & (-value - 1) == 0 and (-value).bit_length() % 8 == 0:
+        # -2^(8k-1): pyasn1 0.6 adds a leading FF byte (FF 80 for -128), which X.690
+        # 8.3.2 forbids (the first nine bits must not all be ones); ours is minimal.
+        assert ours[2:] == b"\x80" + bytes((-value).bit_length() // 8 - 1)
+    else:
+        assert ours == encoder.encode(univ.Integer(value))
+
+
+def test_integer_worked_examples():
+    # X.690 8.3: minimal two's complement, worked by hand.
+    assert wire.integer(0) == bytes.fromhex("020100")
+    assert wire.integer(127) == bytes.fromhex("02017f")
+    assert wire.integer(128) == bytes.fromhex("02020080")
+    assert wire.integer(-128) == bytes.fromhex("020180")
+    assert wire.integer(-129) == bytes.fromhex("0202ff7f")
 
 
 @given(arcs)

@@ -70,7 +70,7 @@ def run_check(monitor: Monitor, as_json: bool) -> int:
         if v.assessment is None:
             failures.append(failed_device_row(v.outcome))
         else:
-            rows.extend(optic_rows(v.assessment, monitor.targets, v.contexts))
+            rows.extend(optic_rows(v.assessment, monitor.targets, v.contexts, v.links))
     worst_first(rows, monitor.targets)
     if as_json:
         doc: Any = [r.as_json() for r in rows]

@@ -17,9 +17,9 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from lightwarden.collector.entry import SharedParts
-from lightwarden.collector.readings import OpticIdentity, PollOutcome, Quantity
+from lightwarden.collector.readings import OpticIdentity, PollOutcome, Quantity, ReadingStatus
 from lightwarden.collector.source import PollSource
-from lightwarden.exporters.pages.view import DeviceView
+from lightwarden.exporters.pages.view import DeviceView, LinkLoss
 from lightwarden.exporters.prometheus.exposition import Exposition
 from lightwarden.exporters.prometheus.self_metrics import SelfMetrics
 from lightwarden.exporters.store.gather import history_advice_context
@@ -189,7 +189,8 @@ class Monitor:
             events = self.lifecycle.mark_stale(outcome.device, now)
         self.exposition.update(outcome, assessment)
         view = self._views[outcome.device] = DeviceView(
-            outcome, assessment, far if outcome.batch is not None else {})
+            outcome, assessment, far if outcome.batch is not None else {},
+            self._links(assessment) if assessment is not None else {})
         if events and self.alert_sink is not None:
             self.alert_sink(events)
         return view
@@ -237,6 +238,47 @@ class Monitor:
             if tx_cond in _TX_CAUSES:
                 a.cause[i] = alert_key(far_dev, far_port, lane, Quantity.TX_POWER)
         return out
+
+    def _links(self, a: Assessment) -> dict[tuple[str, int], LinkLoss]:
+        """Every lane with a far end in the plant: the span's loss measured both ways
+        (from the latest polls of both ends) and as engineered."""
+        out: dict[tuple[str, int], LinkLoss] = {}
+        b = a.batch
+        here: dict[tuple[str, int, int], float] = {}
+        ok = b.status == int(ReadingStatus.OK)
+        for i in np.flatnonzero(ok & ((b.quantity == int(Quantity.RX_POWER))
+                                      | (b.quantity == int(Quantity.TX_POWER)))).tolist():
+            here[(b.optics[int(b.optic[i])].port, int(b.lane[i]), int(b.quantity[i]))] = float(
+                b.value[i])
+        lanes = {(b.optics[int(b.optic[i])].port, int(b.lane[i]))
+                 for i in np.flatnonzero(b.quantity == int(Quantity.RX_POWER)).tolist()
+                 if int(b.lane[i]) > 0}
+        for port, lane in sorted(lanes):
+            ref = self.plant.far_end(b.device, port)
+            if ref is None:
+                continue
+            far_dev, far_port = ref
+            far_tx, _ = self._far_tx(far_dev, far_port, lane)
+            far_rx = self._far_value(far_dev, far_port, lane, Quantity.RX_POWER)
+            rx = here.get((port, lane, int(Quantity.RX_POWER)))
+            tx = here.get((port, lane, int(Quantity.TX_POWER)))
+            out[(port, lane)] = LinkLoss(
+                far=f"{far_dev} {far_port}",
+                loss_in_db=None if far_tx is None or rx is None else far_tx - rx,
+                loss_out_db=None if tx is None or far_rx is None else tx - far_rx,
+                engineered_db=self._engineered(far_dev, far_port, b.device, port))
+        return out
+
+    def _far_value(self, device: str, port: str, lane: int, q: Quantity) -> float | None:
+        view = self._views.get(device)
+        fb = view.outcome.batch if view is not None else None
+        if fb is None:
+            return None
+        for j in np.flatnonzero((fb.quantity == int(q))
+                                & (fb.status == int(ReadingStatus.OK))).tolist():
+            if int(fb.lane[j]) == lane and fb.optics[int(fb.optic[j])].port == port:
+                return float(fb.value[j])
+        return None
 
     def _pad_facts(self, a: Assessment) -> dict[tuple[str, int, Quantity], AdviceContext]:
         """For each receiver on the overload side: what a worst-case pad must know (the
@@ -335,4 +377,12 @@ class Monitor:
             self.build_sources()
         now = self.clock()
         outcomes = await asyncio.gather(*(s.poll(now) for s in self.sources))
-        return [self.handle(o) for o in outcomes]
+        views = [self.handle(o) for o in outcomes]
+        # One sweep sees every device at once: a receiver handled before its far end's
+        # device learns its cause (and the far end's readings) on a second look.
+        for n, view in enumerate(views):
+            if view.assessment is not None:
+                merged = {**view.contexts, **self._far_ends(view.assessment)}
+                views[n] = self._views[view.outcome.device] = DeviceView(
+                    view.outcome, view.assessment, merged, self._links(view.assessment))
+        return views

@@ -12,6 +12,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 from lightwarden.collector.readings import LANE_QUANTITIES, PollOutcome, Quantity, ReadingStatus
+from lightwarden.exporters.pages.view import LinkLoss
 from lightwarden.rules.advice import AdviceContext, advise
 from lightwarden.rules.assess import MarginTargets
 from lightwarden.rules.findings import (
@@ -52,6 +53,9 @@ class OpticRow:
     edge: dict[str, object] = field(default_factory=dict)
     cause: str = ""  # alert key of the reading that explains this one ("" if its own)
     pad_db: float | None = None  # the fixed attenuator the advice names, if any
+    #: The span behind this lane (plant record): far end, loss measured both ways and
+    #: the engineered loss, dB
+    span: dict[str, object] = field(default_factory=dict)
     condition: str = Condition.HEALTHY.word
     severity: Severity = Severity.NONE
     notes: list[str] = field(default_factory=list)
@@ -115,6 +119,7 @@ _STATUS_WORDS = {
 
 def optic_rows(assessment: Assessment, targets: MarginTargets | None = None,
                contexts: Mapping[tuple[str, int, Quantity], AdviceContext] | None = None,
+               links: Mapping[tuple[str, int], LinkLoss] | None = None,
                ) -> list[OpticRow]:
     """Wide rows, each with advice for its worst condition (margin ``targets`` for pads;
     ``contexts`` the far-end and span facts the monitor gathered, as the alerts use)."""
@@ -152,6 +157,10 @@ def optic_rows(assessment: Assessment, targets: MarginTargets | None = None,
     for row in rows.values():
         if row.severity >= Severity.WARNING:
             _advise(row, assessment, targets, contexts or {})
+        link = (links or {}).get((row.port, row.lane))
+        if link is not None:
+            row.span = {"far": link.far, "loss_in_db": link.loss_in_db,
+                        "loss_out_db": link.loss_out_db, "engineered_db": link.engineered_db}
     return list(rows.values())
 
 

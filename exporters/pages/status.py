@@ -52,7 +52,8 @@ class StatusPage:
                             "error": o.error, "error_kind": o.error_kind,
                             "polled_at": o.started_at})
             if view.assessment is not None:
-                rows.extend(optic_rows(view.assessment, self.monitor.targets, view.contexts))
+                rows.extend(optic_rows(view.assessment, self.monitor.targets, view.contexts,
+                                       view.links))
         worst_first(rows, self.monitor.targets)
         return rows, devices
 

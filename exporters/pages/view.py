@@ -15,6 +15,16 @@ from lightwarden.rules.plant import Plant
 from lightwarden.rules.spanloss import LinkIssue
 
 
+@dataclass(slots=True, frozen=True)
+class LinkLoss:
+    """One lane's span, seen from this port: measured both ways and as built (dB)."""
+
+    far: str  # "device port" of the far end
+    loss_in_db: float | None  # far Tx - Rx here
+    loss_out_db: float | None  # Tx here - far Rx
+    engineered_db: float | None  # the plant record's budget for the span
+
+
 @dataclass(slots=True)
 class DeviceView:
     """The latest poll of one device, as the check command and status page read it."""
@@ -24,6 +34,8 @@ class DeviceView:
     #: Facts from outside the poll the advice used (far end, span loss), by
     #: (port, lane, quantity), so check and the page advise as the alerts do
     contexts: Mapping[tuple[str, int, Quantity], AdviceContext] = field(default_factory=dict)
+    #: The span behind each lane with a far end in the plant, by (port, lane)
+    links: Mapping[tuple[str, int], LinkLoss] = field(default_factory=dict)
 
 
 class MonitorView(Protocol):

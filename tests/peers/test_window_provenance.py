@@ -193,7 +193,11 @@ def test_oma_optic_is_judged_in_its_own_terms_with_a_note(with_maps, without_map
         assert not dbm_close(a.low_edge[r], PMD_LR[0])
         assert not dbm_close(a.high_edge[r], PMD_LR[1])
         assert OMA_ROW_NOTE in row_note(view, r)
-        assert "overload" not in row_note(view, r)  # no comparison with the PMD row
+        # judged against the standard's OMA sensitivity (cl.52 10GBASE-LR -12.6 dBm OMA,
+        # pmd_catalogue.csv, from memory), never compared with its average-power row
+        assert "Rx judged in OMA" in row_note(view, r)
+        assert dbm_close(a.low_edge[r], -12.6)
+        assert "average receive power" not in row_note(view, r)
 
     # Without the map the same optic passes for average power: judged by the PMD table
     # with no word about OMA. This is the silent comparison the map prevents.

@@ -91,8 +91,10 @@ def lab_process(tmp_path_factory: pytest.TempPathFactory):
             proc.kill()
 
 
-def _site(tmp: Path, endpoints, name: str, devices: list[str] | None = None) -> Path:
-    data = lab_site_config(endpoints, secrets="env", known_hosts=str(endpoints.known_hosts))
+def _site(tmp: Path, endpoints, name: str, devices: list[str] | None = None,
+          plant: bool = False) -> Path:
+    data = lab_site_config(endpoints, secrets="env", known_hosts=str(endpoints.known_hosts),
+                           lab=Lab.load() if plant else None)
     if devices is not None:
         data["devices"] = [d for d in data["devices"] if d["name"] in devices]
     path = tmp / name
@@ -102,7 +104,7 @@ def _site(tmp: Path, endpoints, name: str, devices: list[str] | None = None) -> 
 
 def test_check_json_has_every_optic_and_lane_worst_first(lab_process):
     _base, endpoints, tmp = lab_process
-    site = _site(tmp, endpoints, "site.yaml")
+    site = _site(tmp, endpoints, "site.yaml", plant=True)
     res = lightwarden("check", "-c", str(site), "--json", env=LAB_ENV)
     assert res.returncode == 1, res.stderr  # the lab has scripted faults: findings
     rows = json.loads(res.stdout)
@@ -142,6 +144,31 @@ def test_check_json_has_every_optic_and_lane_worst_first(lab_process):
     assert by_port[("qm-core-a", "sfp2", 1)]["bias_ma"] is None
     lr4 = [r for r in rows if r["device"] == "qm-core-a" and r["port"] == "qsfp1"]
     assert sorted(r["lane"] for r in lr4) == [1, 2, 3, 4]
+    # Lab stories (lab.yaml) through check --json:
+    # lanes_from_zero: qm-core-a qsfp2's sensors are named lanes 0..3, read as 1..4
+    assert sorted(r["lane"] for r in rows
+                  if (r["device"], r["port"]) == ("qm-core-a", "qsfp2")) == [1, 2, 3, 4]
+    # total_power_sensor: qm-core-b qsfp2 has a lane-0 row judged against 4 lanes' sum
+    (total,) = [r for r in rows if (r["device"], r["port"], r["lane"]) == ("qm-core-b",
+                                                                           "qsfp2", 0)]
+    assert any("total power of 4 lanes" in n for n in total["notes"])
+    # tx_fault: the module flags TX_FAULT; its far receiver (by the plant record) is
+    # dark and caused by it
+    fault = by_port[("qm-core-b", "sfp27", 1)]
+    assert fault["condition"] == "tx_fault"
+    assert any("TX_FAULT" in n for n in fault["notes"])
+    far = by_port[("qm-core-a", "sfp27", 1)]
+    assert (far["condition"], far["cause"]) == ("dark", "qm-core-b|sfp27|1|tx_power")
+    # every lane with a far end in the plant carries its span, measured both ways and as
+    # engineered (span loss = Tx at one end - Rx at the other: standards.md, practice)
+    spans = [r for r in rows if r["span"]]
+    assert len(spans) >= 150
+    lit = by_port[("qm-core-a", "sfp31", 1)]["span"]
+    assert lit["far"] == "qm-core-b sfp31"
+    assert lit["loss_in_db"] > 0 and lit["loss_out_db"] > 0 and lit["engineered_db"] > 0
+        # dark_port: this end's laser is off (bias 0 mA), the far receiver caused by it
+    assert by_port[("qm-core-a", "sfp20", 1)]["condition"] == "laser_off"
+    assert by_port[("qm-dist-b", "sfp20", 1)]["cause"] == "qm-core-a|sfp20|1|tx_power"
 
 
 def test_check_table_and_exit_zero_when_all_healthy(lab_process):

@@ -46,6 +46,12 @@ ENT_COLUMNS = (
     ENT_DESCR, ENT_CONTAINED_IN, ENT_CLASS, ENT_NAME, ENT_SERIAL, ENT_MFG, ENT_MODEL, ENT_ALIAS,
 )  # fmt: skip
 
+#: Read first at discovery: enough to find which entities are ports, modules and sensors.
+ENT_TREE_COLUMNS = (ENT_CLASS, ENT_CONTAINED_IN, ENT_ALIAS)
+#: Then only these rows: a module's descriptive columns, a port's or sensor's name.
+ENT_MODULE_ROW = (ENT_DESCR, ENT_NAME, ENT_SERIAL, ENT_MODEL)
+ENT_NAME_ROW = (ENT_NAME,)
+
 _SENSOR = "1.3.6.1.2.1.99.1.1.1"
 SENSOR_TYPE = _SENSOR + ".1"
 SENSOR_SCALE = _SENSOR + ".2"
@@ -243,6 +249,39 @@ def build_inventory(
     for spec in optics.values():
         _number_lanes(spec)
     return Inventory(list(optics.values()), sys_uptime=sys_uptime, last_change=last_change)
+
+
+@dataclass(slots=True, frozen=True)
+class RowsToRead:
+    """Which entity rows discovery reads after the containment tree (see rows_to_read)."""
+
+    modules: tuple[int, ...]  # transceivers in a port: ENT_MODULE_ROW
+    named: tuple[int, ...]  # their ports and the sensors below them: ENT_NAME_ROW
+    sensors: tuple[int, ...]  # sensors below a transceiver: SENSOR_STATIC_COLUMNS
+
+
+def rows_to_read(tree: Table) -> RowsToRead:
+    """From entPhysicalClass and entPhysicalContainedIn, the rows worth reading.
+
+    A switch's entity table also holds chassis, fans, power supplies, line cards and
+    their sensors; only transceivers in ports, their ports and the sensors below them
+    (up to the same depth :func:`build_inventory` follows) matter to us.
+    """
+    classes = _column(tree, ENT_CLASS)
+    parent = _column(tree, ENT_CONTAINED_IN)
+    modules: dict[int, OpticSpec] = {}
+    ports: list[int] = []
+    for ent_index, ent_class in sorted(classes.items()):
+        port_entity = _int(parent.get(ent_index))
+        if ent_class == CLASS_MODULE and port_entity is not None and (
+                classes.get(port_entity) == CLASS_PORT):  # fmt: skip
+            modules[ent_index] = OpticSpec(OpticIdentity(device="", port=""))
+            ports.append(port_entity)
+    sensors = tuple(
+        ent_index for ent_index, ent_class in sorted(classes.items())
+        if ent_class == CLASS_SENSOR and _owning_optic(ent_index, parent, modules) is not None
+    )  # fmt: skip
+    return RowsToRead(tuple(modules), tuple(sorted(set(ports))) + sensors, sensors)
 
 
 def lane_map(raw: list[int]) -> dict[int, int]:

@@ -77,6 +77,8 @@ class Poll(_Model):
     timeout_s: float = Field(default=2.0, gt=0)
     retries: int = Field(default=1, ge=0, le=10)
     max_backoff_s: float = Field(default=900.0, gt=0)
+    #: polls running at once across all devices; the rest wait for a slot
+    max_in_flight: int = Field(default=64, ge=1, le=10_000)
     ssh_threads: int = Field(default=16, ge=1, le=256)
     ssh_per_device: int = Field(default=1, ge=1, le=8)
 

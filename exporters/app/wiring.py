@@ -126,12 +126,39 @@ def plant_of(cfg: SiteConfig, catalogue: Catalogue,
 
 
 def my_devices(cfg: SiteConfig) -> list[Device]:
-    """The configured devices this instance polls (all, unless the site is sharded)."""
+    """The configured devices this instance polls (all, unless the site is sharded).
+
+    Devices joined by plant spans stay on one instance (see shard.py).
+    """
     sh = cfg.shard
     if sh.count == 1:
         return list(cfg.devices)
-    names = set(mine([d.name for d in cfg.devices], sh.index, sh.count))
+    links = [(span.a.split()[0], span.b.split()[0]) for span in cfg.plant]
+    names = set(mine([d.name for d in cfg.devices], sh.index, sh.count, links))
     return [d for d in cfg.devices if d.name in names]
+
+
+def as_instance(cfg: SiteConfig, index: int, listen_port: int | None = None) -> SiteConfig:
+    """The config of shard instance ``index`` (``run --shard-index``, one per core).
+
+    Overrides ``shard.index``; the instance listens on ``listen.port + index`` unless
+    ``listen_port`` is given (or the base port is 0, "any free port"), so instances on one
+    host never collide and Prometheus scrapes each at its own port.
+    """
+    count = cfg.shard.count
+    if not 0 <= index < count:
+        raise ConfigError(f"--shard-index {index} must be from 0 to shard.count - 1 "
+                          f"({count - 1}); set shard.count in the site config")  # fmt: skip
+    port = listen_port if listen_port is not None else cfg.listen.port
+    if listen_port is None and port:
+        port += index
+        if port > 65535:
+            raise ConfigError(f"listen.port {cfg.listen.port} + shard index {index} is "
+                              "above 65535")  # fmt: skip
+    return cfg.model_copy(update={
+        "shard": cfg.shard.model_copy(update={"index": index}),
+        "listen": cfg.listen.model_copy(update={"port": port}),
+    })  # fmt: skip
 
 
 def open_history(cfg: SiteConfig, base_dir: Path) -> History | None:

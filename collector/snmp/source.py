@@ -22,6 +22,7 @@ from lightwarden.collector.readings import (
     ReadingStatus,
 )
 from lightwarden.collector.sensors import sensor_value
+from lightwarden.collector.snmp.capture import CaptureSession
 from lightwarden.collector.snmp.credentials import SnmpCredentials
 from lightwarden.collector.snmp.fast import FastSession, SocketPool
 from lightwarden.collector.snmp.inventory import (
@@ -130,6 +131,7 @@ class SnmpSource:
         eeprom_oid: str | None = None,
         sockets: SocketPool | None = None,
         fast_path: bool = True,
+        session: CaptureSession | None = None,
     ) -> None:
         self._name = name
         self._own_engines = engines is None
@@ -154,6 +156,9 @@ class SnmpSource:
                 self._sockets, credentials, host, port,
                 timeout=timeout, retries=retries, max_repetitions=max_repetitions,
             )  # fmt: skip
+        if session is not None:
+            # Offline: a saved walk answers every request (collector/snmp/capture.py).
+            self._session = self._steady = session  # type: ignore[assignment]
         self._pmd_names = pmd_names
         self._inventory: Inventory | None = None
         self._marked_at = 0.0  # monotonic time of the sysUpTime kept in the inventory

@@ -156,6 +156,8 @@ def cmd_bench_poll(args: argparse.Namespace) -> int:
 def cmd_check(args: argparse.Namespace) -> int:
     from lightwarden.exporters.app.wiring import build_monitor
 
+    if args.walk:
+        return _check_walk(args)
     if args.config and args.target:
         raise UsageError("give either -c SITE.yaml or HOST[:PORT], not both")
     if args.config:
@@ -166,6 +168,36 @@ def cmd_check(args: argparse.Namespace) -> int:
         raise UsageError("give -c SITE.yaml or HOST[:PORT]")
     monitor = build_monitor(cfg, base_dir=base, alerts=False)
     monitor.build_sources()
+    return run_check(monitor, args.json)
+
+
+def _check_walk(args: argparse.Namespace) -> int:
+    """Judge a saved walk as if the device had been polled (collector/snmp/capture.py)."""
+    from lightwarden.collector.snmp.capture import CaptureError, CaptureSession, load_capture
+    from lightwarden.collector.snmp.credentials import SnmpCredentials
+    from lightwarden.collector.snmp.source import SnmpSource
+    from lightwarden.exporters.app.wiring import build_monitor
+
+    if args.target:
+        raise UsageError("give either --walk FILE or HOST[:PORT], not both")
+    try:
+        values = load_capture(args.walk)
+    except CaptureError as exc:
+        raise UsageError(str(exc)) from None
+    sys_name = values.get((1, 3, 6, 1, 2, 1, 1, 5, 0))
+    name = (sys_name.decode("utf-8", "replace").strip() if isinstance(sys_name, bytes)
+            else "") or Path(args.walk).stem
+    if args.config:
+        cfg, base = _load(args.config)
+    else:
+        from lightwarden.exporters.app.config import parse_config
+
+        cfg, base = parse_config("site: capture\ndevices: []\n", "(capture)"), Path.cwd()
+    monitor = build_monitor(cfg, base_dir=base, alerts=False)
+    monitor.sources = [SnmpSource(
+        name, "capture", SnmpCredentials.v2c("capture"), session=CaptureSession(
+            values, f"capture {args.walk}"),
+        pmd_names=tuple(s.name for s in monitor.catalogue), eeprom_oid=args.eeprom_oid)]
     return run_check(monitor, args.json)
 
 
@@ -411,6 +443,9 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("target", nargs="?", metavar="HOST[:PORT]", help="one SNMP device, ad hoc")
     c.add_argument("--json", action="store_true", help="print a JSON array")
     _target_args(c)
+    c.add_argument("--walk", metavar="FILE",
+                   help="judge a saved snmpwalk -On / snmpbulkwalk -On capture instead of "
+                        "polling (with -c, the site's windows, overrides and plant apply)")
     c.set_defaults(func=cmd_check)
 
     b = sub.add_parser("bench", help="measure what polling costs this process")

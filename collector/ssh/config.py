@@ -87,7 +87,9 @@ def from_config(device: SshDevice, credential: SshLogin, ctx: BuildContext,
                              lambda w: w.shutdown(wait=False))
     known = device.known_hosts or s.known_hosts
     if known is not None and not Path(known).is_absolute():
-        known = str(ctx.base_dir / known)
+        # known_hosts is trust state (what ssh keeps in ~/.ssh), so it lives with the
+        # rest of our state, not beside a config that may be read-only.
+        known = str((ctx.state_dir or ctx.base_dir) / known)
     timeout = device.timeout_s or ctx.timeout_s
     return SshSource(
         device.name, device.host, _platform(device.platform, ctx),

@@ -14,6 +14,7 @@ from lightwarden.exporters.alerts.delivery import Dispatcher
 from lightwarden.exporters.alerts.http import AlertDestination
 from lightwarden.exporters.alerts.outbox import Outbox, OutboxError
 from lightwarden.exporters.app.config import ConfigError, SiteConfig
+from lightwarden.exporters.app.statedir import ensure_state_dir, state_path
 from lightwarden.rules.findings import AlertEvent
 from lightwarden.rules.lifecycle import AlertLifecycle
 
@@ -58,16 +59,21 @@ def destinations(cfg: SiteConfig, base_dir: Path) -> list[AlertDestination]:
     return out
 
 
+def outbox_path(cfg: SiteConfig, state_dir: Path) -> Path:
+    return state_path(state_dir, cfg.alerting.outbox_path)
+
+
 def start_alerting(lifecycle: AlertLifecycle, cfg: SiteConfig,
-                   base_dir: Path) -> AlertRunner | None:
+                   base_dir: Path, state_dir: Path) -> AlertRunner | None:
     """Restore the lifecycle's saved state and start delivery; None when no destination
-    is configured."""
+    is configured. Secrets resolve against ``base_dir``, the outbox against
+    ``state_dir``."""
     dests = destinations(cfg, base_dir)
     if not dests:
         return None
-    path = Path(cfg.alerting.outbox_path)
-    if not path.is_absolute():
-        path = base_dir / path
+    path = outbox_path(cfg, state_dir)
+    if path.is_relative_to(state_dir):
+        ensure_state_dir(state_dir)
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
         outbox = Outbox(path)

@@ -9,10 +9,12 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import contextlib
 import json
 import logging
 import os
 import sys
+import tempfile
 import time
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -54,6 +56,14 @@ def _setup_logging(verbose: int) -> None:
 def _load(path: str) -> tuple[SiteConfig, Path]:
     cfg = load_config(path)
     return cfg, Path(path).resolve().parent
+
+
+def _state_dir(args: argparse.Namespace, cfg: SiteConfig | None, base: Path) -> Path:
+    """The state directory (exporters/app/statedir.py); not created here."""
+    from lightwarden.exporters.app.statedir import resolve_state_dir
+
+    return resolve_state_dir(getattr(args, "state_dir", None),
+                             cfg.state_dir if cfg is not None else None, config_dir=base)
 
 
 # -- check --------------------------------------------------------------------------------
@@ -135,7 +145,8 @@ def cmd_check(args: argparse.Namespace) -> int:
         cfg, base = _adhoc_config(args), Path.cwd()
     else:
         raise UsageError("give -c SITE.yaml or HOST[:PORT]")
-    monitor = build_monitor(cfg, base_dir=base, alerts=False)
+    monitor = build_monitor(cfg, base_dir=base, state_dir=_state_dir(args, cfg, base),
+                            alerts=False)
     monitor.build_sources()
     return run_check(monitor, args.json)
 
@@ -158,10 +169,11 @@ def cmd_run(args: argparse.Namespace) -> int:
     from lightwarden.exporters.app.wiring import build_monitor
 
     cfg, base = _load(args.config)
-    monitor = build_monitor(cfg, base_dir=base)
+    monitor = build_monitor(cfg, base_dir=base, state_dir=_state_dir(args, cfg, base))
     monitor.build_sources()
-    monitor.open_history()
+    # The listening socket first: a start that fails (port in use) leaves no files.
     service = Service(monitor, cfg, base)
+    monitor.open_history()
     print(f"lightwarden: {len(cfg.devices)} devices; metrics at {service.url}/metrics",
           flush=True)
     service.serve()
@@ -169,6 +181,17 @@ def cmd_run(args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
+    with contextlib.ExitStack() as scope:
+        if args.state_dir:
+            state = Path(args.state_dir).expanduser().resolve()
+        else:
+            # Nothing of a demo is worth keeping: its state goes with it.
+            state = Path(scope.enter_context(
+                tempfile.TemporaryDirectory(prefix="lightwarden-demo-")))
+        return _demo(args, state)
+
+
+def _demo(args: argparse.Namespace, state: Path) -> int:
     import yaml
 
     from lightwarden.exporters.app.config import parse_config
@@ -179,22 +202,22 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
     os.environ.update(LAB_ENV)
     # Each demo starts afresh: a new lab has no past alerts or readings of its own.
-    state = Path(args.state_dir)
     for name in ("outbox.sqlite", "history.sqlite"):
         for suffix in ("", "-wal", "-shm"):
             (state / (name + suffix)).unlink(missing_ok=True)
+    print(f"lightwarden demo: starting the Quillmoor lab (state in {state}) ...", flush=True)
     lab = LabServers(speed=args.speed, base_port=0)
     endpoints = _start_lab(lab)
     try:
         data = lab_site_config(endpoints, interval_s=args.interval, lab=lab.lab)
-        data["history"] = {"path": str(Path(args.state_dir) / "history.sqlite"),
-                           "sample_every_s": args.interval}
+        data["state_dir"] = str(state)
+        data["history"] = {"path": "history.sqlite", "sample_every_s": args.interval}
         data["listen"] = {"host": "127.0.0.1", "port": args.port}
         # Short holds so the scripted stories show within minutes of wall time.
         data["conditions"] = {"hold_s": args.hold, "clear_hold_s": 2 * args.hold,
                               "hysteresis_db": 0.5}
         alerting: dict[str, Any] = {"resolve_hold_s": 0.0,
-                                    "outbox_path": str(Path(args.state_dir) / "outbox.sqlite"),
+                                    "outbox_path": "outbox.sqlite",
                                     "labels": {"site": "quillmoor"}}
         if args.alertmanager:
             alerting["alertmanager"] = [{"url": args.alertmanager}]
@@ -202,15 +225,17 @@ def cmd_demo(args: argparse.Namespace) -> int:
             alerting["webhooks"] = [{"url": args.webhook}]
         data["alerting"] = alerting
         cfg = parse_config(yaml.safe_dump(data), "(demo)")
-        monitor = build_monitor(cfg, base_dir=Path.cwd())
+        monitor = build_monitor(cfg, base_dir=state, state_dir=state)
         monitor.build_sources()
         history = monitor.open_history()
         if history is not None and args.backfill_days > 0:
             from lightwarden.fixtures.lab.backfill import backfill
 
+            print(f"  writing {args.backfill_days:g} days of lab history for the report ...",
+                  flush=True)
             backfill(lab.lab, lambda b: history.record(b, force=True), lab.clock.now(),
                      time.time(), days=args.backfill_days)
-        service = Service(monitor, cfg, Path.cwd())
+        service = Service(monitor, cfg, state)
         n_optics = len(lab.lab.optic_ports())
         print(f"lightwarden demo: Quillmoor lab, {len(lab.lab.devices)} switches, "
               f"{n_optics} optics, lab clock x{args.speed:g}", flush=True)
@@ -240,10 +265,15 @@ def _start_lab(lab: Any) -> Any:
 
 def cmd_lab(args: argparse.Namespace) -> int:
     from lightwarden.exporters.app.runtime import Stop
+    from lightwarden.exporters.app.statedir import ensure_state_dir
     from lightwarden.fixtures.lab.server import LabServers
 
-    known = Path(args.known_hosts)
-    known.parent.mkdir(parents=True, exist_ok=True)
+    if args.known_hosts:
+        known = Path(args.known_hosts).expanduser()
+        known.parent.mkdir(parents=True, exist_ok=True)
+    else:
+        # Into the state directory, where a site config's relative known_hosts points.
+        known = ensure_state_dir(_state_dir(args, None, Path.cwd())) / "lab_known_hosts"
     lab = LabServers(speed=args.speed, base_port=args.port, known_hosts_path=known)
     endpoints = _start_lab(lab)
     print(f"lightwarden lab: {len(endpoints.snmp)} switches, lab clock x{args.speed:g}",
@@ -265,14 +295,13 @@ def cmd_lab(args: argparse.Namespace) -> int:
 
 
 def cmd_report(args: argparse.Namespace) -> int:
-    from lightwarden.exporters.app.wiring import build_monitor
+    from lightwarden.exporters.app.wiring import build_monitor, history_path
     from lightwarden.exporters.pages.report import build_report, render_report, report_json
 
     cfg, base = _load(args.config)
-    monitor = build_monitor(cfg, base_dir=base, alerts=False)
-    path = Path(cfg.history.path)
-    if not path.is_absolute():
-        path = base / path
+    state = _state_dir(args, cfg, base)
+    monitor = build_monitor(cfg, base_dir=base, state_dir=state, alerts=False)
+    path = history_path(cfg, state)
     if not path.exists():
         raise ConfigError(f"history.path {path}: no history yet (run `lightwarden run` first)")
     history = monitor.open_history()
@@ -318,6 +347,13 @@ def _port(text: str) -> int:
 
 
 
+def _state_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--state-dir", metavar="DIR",
+                   help="where history, alert outbox and saved state live (default: the "
+                        "config's state_dir, else $STATE_DIRECTORY, else "
+                        "$XDG_STATE_HOME/lightwarden or ~/.local/state/lightwarden)")
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="lightwarden",
@@ -337,8 +373,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="condition hold time, seconds (demo default is short)")
     d.add_argument("--alertmanager", metavar="URL", help="send alerts to this Alertmanager")
     d.add_argument("--webhook", metavar="URL", help="send alert events to this webhook")
-    d.add_argument("--state-dir", default="var/demo",
-                   help="where the demo keeps its outbox and history")
+    d.add_argument("--state-dir", default=None, metavar="DIR",
+                   help="keep the demo's outbox and history here (default: a temporary "
+                        "directory, removed when the demo ends)")
     d.add_argument("--backfill-days", type=float, default=60.0, metavar="DAYS",
                    help="give the demo this many days of lab history first, so the "
                         "planners' report has something to say (0: none)")
@@ -346,6 +383,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     r = sub.add_parser("run", help="the monitor daemon")
     r.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    _state_option(r)
     r.set_defaults(func=cmd_run)
 
     c = sub.add_parser("check", help="poll every device once and print each optic")
@@ -363,6 +401,7 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR")
     c.add_argument("--timeout", type=float, default=2.0, help="seconds per SNMP request")
     c.add_argument("--retries", type=int, default=1)
+    _state_option(c)
     c.set_defaults(func=cmd_check)
 
     v = sub.add_parser("validate", help="check a site config without polling")
@@ -374,14 +413,17 @@ def build_parser() -> argparse.ArgumentParser:
                      help="first port: device i answers SNMP (UDP) and SSH (TCP) on PORT+i")
     lab.add_argument("--speed", type=float, default=1.0, help="lab clock speed-up")
     lab.add_argument("--duration", type=float, default=None, metavar="SECONDS")
-    lab.add_argument("--known-hosts", default="var/lab_known_hosts",
-                     help="where to write the lab's SSH host keys")
+    lab.add_argument("--known-hosts", default=None, metavar="FILE",
+                     help="where to write the lab's SSH host keys (default: "
+                          "lab_known_hosts in the state directory)")
+    _state_option(lab)
     lab.set_defaults(func=cmd_lab)
 
     rep = sub.add_parser("report", help="planners' report: ageing links, forecasts, span loss")
     rep.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
     rep.add_argument("--days", type=float, default=90.0, help="history to fit (default 90)")
     rep.add_argument("--json", action="store_true")
+    _state_option(rep)
     rep.set_defaults(func=cmd_report)
 
     dec = sub.add_parser("decode", help="decode a module memory map (binary or hex dump)")

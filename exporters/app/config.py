@@ -82,7 +82,8 @@ class Poll(_Model):
 
 
 class Ssh(_Model):
-    known_hosts: str | None = None  # strict host-key checking against this file
+    #: strict host-key checking against this file; relative: in the state directory
+    known_hosts: str | None = None
     strict_host_keys: bool = True
     read_timeout_s: float = Field(default=20.0, gt=0)
 
@@ -182,7 +183,7 @@ class Alerting(_Model):
     open_hold_s: float = Field(default=0.0, ge=0)
     resolve_hold_s: float = Field(default=0.0, ge=0)
     holds: list[AlertHold] = Field(default_factory=list)
-    outbox_path: str = "var/lightwarden-outbox.sqlite"
+    outbox_path: str = "lightwarden-outbox.sqlite"  # relative: in the state directory
     labels: dict[str, str] = Field(default_factory=dict)
     generator_url: str | None = None
 
@@ -206,7 +207,7 @@ class Listen(_Model):
 
 
 class History(_Model):
-    path: str = "var/lightwarden-history.sqlite"
+    path: str = "lightwarden-history.sqlite"  # relative: in the state directory
     keep_days: float = Field(default=400.0, gt=0)
     #: keep at most one sample per device this often (trends need hours, not seconds)
     sample_every_s: float = Field(default=900.0, gt=0)
@@ -215,6 +216,9 @@ class History(_Model):
 
 class SiteConfig(_Model):
     site: str = "site"
+    #: where everything we write lives (exporters/app/statedir.py); relative: from this
+    #: file's folder. Unset: $STATE_DIRECTORY, else the XDG per-user default.
+    state_dir: str | None = None
     listen: Listen = Listen()
     shard: Shard = Shard()
     poll: Poll = Poll()

@@ -13,6 +13,7 @@ import logging
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
@@ -61,6 +62,7 @@ class MonitorParts:
     make_sources: Callable[[], list[PollSource]]
     make_history: Callable[[], History | None]
     shared: SharedParts
+    state_dir: Path  # where history, outbox and saved state live
 
 
 class Monitor:

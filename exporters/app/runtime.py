@@ -70,7 +70,8 @@ class Service:
         self.cfg = cfg
         self.server = start_http(monitor, cfg.listen.host, cfg.listen.port)
         try:
-            self.alerting: AlertRunner | None = start_alerting(monitor.lifecycle, cfg, base_dir)
+            self.alerting: AlertRunner | None = start_alerting(
+                monitor.lifecycle, cfg, base_dir, monitor.parts.state_dir)
         except BaseException:
             self.server.stop()
             raise

@@ -165,7 +165,9 @@ class Monitor:
             events = self.lifecycle.mark_stale(outcome.device, now)
         self.exposition.update(outcome, assessment)
         view = self._views[outcome.device] = DeviceView(outcome, assessment)
-        if events and self.alert_sink is not None:
+        # Called also without events when held conditions moved, so the sink saves them
+        # with the lifecycle (a restart must not resolve what the hysteresis holds).
+        if (events or self.parts.tracker.dirty) and self.alert_sink is not None:
             self.alert_sink(events)
         return view
 

@@ -71,7 +71,8 @@ class Service:
         self.server = start_http(monitor, cfg.listen.host, cfg.listen.port)
         try:
             self.alerting: AlertRunner | None = start_alerting(
-                monitor.lifecycle, cfg, base_dir, monitor.parts.state_dir)
+                monitor.lifecycle, cfg, base_dir, monitor.parts.state_dir,
+                monitor.parts.tracker)
         except BaseException:
             self.server.stop()
             raise

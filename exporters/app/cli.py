@@ -172,7 +172,7 @@ def cmd_run(args: argparse.Namespace) -> int:
     monitor = build_monitor(cfg, base_dir=base, state_dir=_state_dir(args, cfg, base))
     monitor.build_sources()
     # The listening socket first: a start that fails (port in use) leaves no files.
-    service = Service(monitor, cfg, base)
+    service = Service(monitor, cfg, base, config_path=args.config)
     monitor.open_history()
     print(f"lightwarden: {len(cfg.devices)} devices; metrics at {service.url}/metrics",
           flush=True)

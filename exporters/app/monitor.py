@@ -81,6 +81,9 @@ class Monitor:
         self.sources: list[PollSource] = []
         self.alert_sink = alert_sink
         self._views: dict[str, DeviceView] = {}
+        #: the devices of the running config (None until sources are built); outcomes of
+        #: others (a poll in flight when a reload removed its device) are dropped
+        self._active: set[str] | None = None
         self._alerts_enabled = alerts
         self.exposition.set_alert_source(self.lifecycle.open_alerts)
 
@@ -130,8 +133,21 @@ class Monitor:
     # -- setup and teardown -----------------------------------------------------------
     def build_sources(self) -> list[PollSource]:
         """Make one source per device. Reads secrets; errors name device and reference."""
-        self.sources = self.parts.make_sources()
+        self.set_sources(self.parts.make_sources())
         return self.sources
+
+    def set_sources(self, sources: list[PollSource]) -> None:
+        self.sources = sources
+        self._active = {s.name for s in sources}
+
+    def forget_device(self, device: str) -> None:
+        """A device taken out of the config: its series end, its open alerts resolve."""
+        self._views.pop(device, None)
+        self.exposition.remove(device)
+        if self._alerts_enabled:
+            events = self.lifecycle.retire(device, self.clock())
+            if events and self.alert_sink is not None:
+                self.alert_sink(events)
 
     def open_history(self) -> History | None:
         """Start keeping reading history (for trends, advice and the planners' report)."""
@@ -149,6 +165,8 @@ class Monitor:
     # -- handling outcomes ----------------------------------------------------------
     def handle(self, outcome: PollOutcome) -> DeviceView:
         """Judge one poll, update metrics and alerts. Never raises for device trouble."""
+        if self._active is not None and outcome.device not in self._active:
+            return DeviceView(outcome, None)  # removed by a reload while it was polled
         now = outcome.started_at + outcome.duration_s
         if self.self_metrics is not None:
             self.self_metrics.observe_poll(outcome.duration_s, outcome.ok)

@@ -63,6 +63,18 @@ _BY_LABEL = {label: q for q, label in _LABELS.items()}
 
 #: Quantities measured per lane; the others are per module (stored with lane 0).
 LANE_QUANTITIES = (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS)
+
+#: Highest lane number a module can have: CMIS allows up to 4 banks of 8 lanes (from
+#: memory); SFF-8636 has 4, SFF-8472 one. Lanes are stored as int16.
+MAX_LANE = 32
+#: the lane stored for a row whose reported lane was out of range (status INVALID)
+BAD_LANE = -1
+
+
+def is_ascii_number(text: str) -> bool:
+    """Only ASCII 0-9: ``str.isdigit`` also accepts superscripts and other scripts'
+    digits, some of which ``int`` then refuses."""
+    return text.isascii() and text.isdigit()
 MODULE_QUANTITIES = (Quantity.TEMPERATURE, Quantity.SUPPLY)
 
 
@@ -182,6 +194,11 @@ class BatchBuilder:
         if status is ReadingStatus.OK and (value is None or not math.isfinite(value)):
             status = ReadingStatus.INVALID
             note = note or "value is not a finite number"
+        if not 0 <= lane <= MAX_LANE:
+            # One impossible lane number must cost its row, never the device's poll
+            # (it would overflow the int16 lane column).
+            note = f"lane {lane} out of range (0..{MAX_LANE})"
+            lane, status = BAD_LANE, ReadingStatus.INVALID
         if note:
             self._notes[len(self._value)] = note
         self._optic.append(optic)

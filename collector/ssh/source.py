@@ -262,7 +262,16 @@ class SshSource:
                     error=f"{self.name}: unexpected {type(exc).__name__} while polling over SSH",
                     error_kind=PollErrorKind.INTERNAL,
                 )
-        result = parse_outputs(self.name, self.platform, outputs, now)
+        try:
+            result = parse_outputs(self.name, self.platform, outputs, now)
+        except Exception as exc:
+            # A parser bug must cost this poll only, named, never the process or a
+            # traceback (parse errors proper are per row, in result.problems).
+            return PollOutcome(
+                self.name, now, time.monotonic() - started,
+                error=f"{self.name}: output could not be parsed ({type(exc).__name__})",
+                error_kind=PollErrorKind.PARSE,
+            )
         if self.read_maps and result.batch is not None:
             await self._apply_maps(result.batch)
         outcome = PollOutcome(self.name, now, time.monotonic() - started, batch=result.batch)

@@ -321,10 +321,19 @@ def _dotted(loc: tuple[Any, ...]) -> str:
     return out or "(top level)"
 
 
+#: a site config is a few hundred kB even for thousands of devices; far more is a mistake
+MAX_CONFIG_BYTES = 16 * 1024 * 1024
+
+
 def parse_config(text: str, source: str = "<config>") -> SiteConfig:
+    if len(text) > MAX_CONFIG_BYTES:
+        raise ConfigError(f"{source}: {len(text)} characters; a site config is limited to "
+                          f"{MAX_CONFIG_BYTES} (is this the right file?)")
     try:
         root = yaml.compose(text)
         data = yaml.safe_load(text)
+    except RecursionError:
+        raise ConfigError(f"{source}: nested too deeply to be a site config") from None
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f"{source}:{mark.line + 1}" if mark else source
@@ -336,6 +345,8 @@ def parse_config(text: str, source: str = "<config>") -> SiteConfig:
         raise ConfigError(f"{source}:1: the top level must be a mapping of keys")
     try:
         cfg = SiteConfig.model_validate(data)
+    except RecursionError:
+        raise ConfigError(f"{source}: nested too deeply to be a site config") from None
     except ValidationError as exc:
         lines = []
         for err in exc.errors(include_input=False, include_url=False):

@@ -33,6 +33,7 @@ from lightwarden.rules.hysteresis import ConditionTracker
 from lightwarden.rules.lifecycle import AlertLifecycle
 from lightwarden.rules.outlook import RxWindow
 from lightwarden.rules.plant import Plant
+from lightwarden.rules.plausibility import flag_implausible
 from lightwarden.rules.spanloss import LinkIssue, check_link
 from lightwarden.rules.windows import WindowResolver
 
@@ -173,6 +174,7 @@ class Monitor:
         assessment = None
         events: list[AlertEvent] = []
         if outcome.batch is not None:
+            flag_implausible(outcome.batch)  # a broken sensor's value is never judged
             assessment = assess(outcome.batch, targets=self.targets, tracker=self.parts.tracker,
                                 now=now, resolver=self.parts.resolver)
             if self.history is not None:

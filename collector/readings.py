@@ -251,6 +251,10 @@ class PollErrorKind(StrEnum):
     INTERNAL = "internal"  # a bug of ours, caught so the poll loop goes on
 
 
+#: device health words, best first (PollOutcome.health)
+HEALTH_WORDS = ("up", "partial", "down")
+
+
 @dataclass(slots=True)
 class PollOutcome:
     """How one poll of one device went: the batch when it worked, the error when not."""
@@ -265,3 +269,16 @@ class PollOutcome:
     @property
     def ok(self) -> bool:
         return self.batch is not None and not self.error
+
+    @property
+    def health(self) -> str:
+        """``up`` (every row read), ``partial`` (rows read, some lost: the error says
+        which), or ``down`` (nothing read). The one word page, JSON and metrics use."""
+        if self.batch is None:
+            return "down"
+        return "partial" if self.error else "up"
+
+    @property
+    def reason(self) -> str:
+        """Why the device is not ``up`` ("" when it is)."""
+        return self.error

@@ -82,6 +82,10 @@ def run_check(monitor: Monitor, as_json: bool) -> int:
         else:
             rows.extend(optic_rows(v.assessment, monitor.targets))
     worst_first(rows, monitor.targets)
+    for v in views:
+        if v.outcome.health == "partial":
+            print(f"warning: {v.outcome.device}: partial poll: {v.outcome.reason}",
+                  file=sys.stderr)
     if as_json:
         doc: Any = [r.as_json() for r in rows]
         print(json.dumps(doc, indent=2))

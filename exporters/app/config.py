@@ -77,6 +77,9 @@ class Poll(_Model):
     timeout_s: float = Field(default=2.0, gt=0)
     retries: int = Field(default=1, ge=0, le=10)
     max_backoff_s: float = Field(default=900.0, gt=0)
+    #: after a failed poll the last readings stay in the metrics this long, then are
+    #: withdrawn (the page keeps showing them, marked stale with their age)
+    stale_after_s: float = Field(default=300.0, gt=0)
     ssh_threads: int = Field(default=16, ge=1, le=256)
     ssh_per_device: int = Field(default=1, ge=1, le=8)
 

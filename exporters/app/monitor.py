@@ -64,6 +64,7 @@ class MonitorParts:
     make_history: Callable[[], History | None]
     shared: SharedParts
     state_dir: Path  # where history, outbox and saved state live
+    stale_after_s: float = 300.0  # a failed device's last readings leave the metrics then
 
 
 class Monitor:
@@ -183,13 +184,34 @@ class Monitor:
                 events = self.lifecycle.observe(assessment, now, self._context(assessment, now))
         elif self._alerts_enabled:
             events = self.lifecycle.mark_stale(outcome.device, now)
-        self.exposition.update(outcome, assessment)
-        view = self._views[outcome.device] = DeviceView(outcome, assessment)
+        last_good = None
+        prev = self._views.get(outcome.device)
+        if assessment is None and prev is not None:
+            last_good = prev.assessment or prev.last_good
+        since = (prev.health_since if prev is not None and prev.health == outcome.health
+                 else outcome.started_at)
+        fresh_enough = (last_good is not None
+                        and now - last_good.batch.taken_at <= self.parts.stale_after_s)
+        self.exposition.update(outcome, assessment, keep_readings=fresh_enough)
+        view = self._views[outcome.device] = DeviceView(
+            outcome, assessment, last_good, withdrawn=not fresh_enough, health_since=since)
         # Called also without events when held conditions moved, so the sink saves them
         # with the lifecycle (a restart must not resolve what the hysteresis holds).
         if (events or self.parts.tracker.dirty) and self.alert_sink is not None:
             self.alert_sink(events)
         return view
+
+    def withdraw_stale(self, now: float) -> list[str]:
+        """Take readings older than the stale age out of the metrics (devices whose polls
+        fail keep their last readings there only that long). Returns the devices."""
+        out = []
+        for name, view in list(self._views.items()):
+            age = view.stale_for(now)
+            if age is not None and not view.withdrawn and age > self.parts.stale_after_s:
+                self.exposition.update(view.outcome, None)
+                view.withdrawn = True
+                out.append(name)
+        return out
 
     def _record(self, a: Assessment) -> None:
         assert self.history is not None

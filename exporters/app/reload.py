@@ -137,6 +137,7 @@ class Reloader:
         base, shared, state = self.base_dir, parts.shared, parts.state_dir
         parts.make_sources = lambda: make_sources(new, base, catalogue, shared, state)
         parts.tracker.policy = policy
+        parts.stale_after_s = new.poll.stale_after_s
         self.monitor.lifecycle.config = lc
         self.monitor.plant = plant
         self.monitor.exposition.set_margin_targets(targets.overload_db, targets.sensitivity_db)

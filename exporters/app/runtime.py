@@ -119,6 +119,7 @@ class Service:
         self._loop = asyncio.get_running_loop()
         sched.start()
         deadline = None if duration is None else time.monotonic() + duration
+        next_sweep = time.monotonic() + 1.0
         try:
             while not stop.event.is_set():
                 if deadline is not None and time.monotonic() >= deadline:
@@ -126,6 +127,9 @@ class Service:
                 if stop.reload.is_set():
                     stop.reload.clear()
                     await self.reload(sched)
+                if time.monotonic() >= next_sweep:
+                    monitor.withdraw_stale(monitor.clock())
+                    next_sweep = time.monotonic() + 1.0
                 await asyncio.sleep(0.2)
         finally:
             self._loop = None

@@ -185,6 +185,7 @@ def build_monitor(
         make_history=lambda: open_history(cfg, state),
         shared=shared,
         state_dir=state,
+        stale_after_s=cfg.poll.stale_after_s,
     )
     own = SelfMetrics()
     parts.exposition.set_self_metrics(own)

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Protocol
 
@@ -20,9 +20,28 @@ class DeviceView:
 
     outcome: PollOutcome
     assessment: Assessment | None
+    #: after a failed poll: the last assessment that had readings (shown stale)
+    last_good: Assessment | None = None
+    #: its readings are no longer in the metrics (older than the stale age)
+    withdrawn: bool = False
+    #: when the device's health became what it is now (epoch seconds)
+    health_since: float = 0.0
+
+    @property
+    def health(self) -> str:
+        return self.outcome.health
+
+    def stale_for(self, now: float) -> float | None:
+        """Age of the readings shown, when they are from an earlier poll."""
+        if self.assessment is not None or self.last_good is None:
+            return None
+        return max(0.0, now - self.last_good.batch.taken_at)
 
 
 class MonitorView(Protocol):
+    #: the monitor's clock (epoch seconds): ages on the page are measured with it
+    clock: Callable[[], float]
+
     @property
     def site(self) -> str: ...
     @property

@@ -96,7 +96,10 @@ def from_config(device: SshDevice, credential: SshLogin, ctx: BuildContext,
         SshCredentials(
             credential.username,
             password=credential.password.read(ctx.base_dir) if credential.password else "",
-            key_file=credential.key_file,
+            # a key file is a secret: relative paths resolve like the other secret files
+            key_file=(str(ctx.base_dir / credential.key_file)
+                      if credential.key_file and not Path(credential.key_file).is_absolute()
+                      else credential.key_file),
             key_passphrase=(credential.passphrase.read(ctx.base_dir)
                             if credential.passphrase else ""),
         ),

@@ -400,10 +400,12 @@ class SshSource:
                               alt_key_file=str(self.known_hosts))
         if creds.key_file:
             try:
+                # paramiko's OpenSSH-format key loader takes the passphrase as bytes
+                # (a str fails deep inside with a TypeError).
+                passphrase = creds.key_passphrase.encode("utf-8") or None
                 kwargs["pkey"] = paramiko.PKey.from_path(
-                    creds.key_file, creds.key_passphrase or None
-                )
-            except (OSError, paramiko.SSHException, ValueError) as exc:
+                    creds.key_file, passphrase)  # type: ignore[arg-type]  # typed str, needs bytes
+            except (OSError, paramiko.SSHException, ValueError, TypeError) as exc:
                 reason = (
                     "needs a passphrase or the passphrase is wrong"
                     if isinstance(exc, paramiko.PasswordRequiredException | paramiko.SSHException)

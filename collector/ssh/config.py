@@ -90,6 +90,11 @@ def from_config(device: SshDevice, credential: SshLogin, ctx: BuildContext,
         # known_hosts is trust state (what ssh keeps in ~/.ssh), so it lives with the
         # rest of our state, not beside a config that may be read-only.
         known = str((ctx.state_dir or ctx.base_dir) / known)
+    if known is not None and s.strict_host_keys and not Path(known).expanduser().is_file():
+        # Caught before polling: every poll would fail on it (host keys are never
+        # accepted blindly).
+        raise ConfigError(f"known_hosts file {known} not found (ssh.known_hosts; relative "
+                          "paths are in the state directory)")
     timeout = device.timeout_s or ctx.timeout_s
     return SshSource(
         device.name, device.host, _platform(device.platform, ctx),

@@ -139,7 +139,7 @@ def _adhoc_config(args: argparse.Namespace) -> SiteConfig:
 
 
 def cmd_check(args: argparse.Namespace) -> int:
-    from lightwarden.exporters.app.wiring import build_monitor
+    from lightwarden.exporters.app.wiring import preflight
 
     if args.config and args.target:
         raise UsageError("give either -c SITE.yaml or HOST[:PORT], not both")
@@ -149,20 +149,28 @@ def cmd_check(args: argparse.Namespace) -> int:
         cfg, base = _adhoc_config(args), Path.cwd()
     else:
         raise UsageError("give -c SITE.yaml or HOST[:PORT]")
-    monitor = build_monitor(cfg, base_dir=base, state_dir=_state_dir(args, cfg, base),
-                            alerts=False)
-    monitor.build_sources()
+    monitor = preflight(cfg, base_dir=base, state_dir=_state_dir(args, cfg, base),
+                        alerts=False)
     return run_check(monitor, args.json)
 
 
 def cmd_validate(args: argparse.Namespace) -> int:
-    from lightwarden.exporters.app.wiring import build_catalogue, build_overrides
+    from lightwarden.exporters.app.wiring import my_devices, preflight
 
-    cfg, _base = _load(args.config)
-    build_catalogue(cfg)
-    build_overrides(cfg)
-    print(f"{args.config}: ok ({len(cfg.devices)} devices, {len(cfg.overrides)} overrides)")
+    cfg, base = _load(args.config)
+    # Exactly what `run` checks before it polls (`check` the same, without alerting).
+    preflight(cfg, base_dir=base, state_dir=_state_dir(args, cfg, base)).close()
+    mine = len(my_devices(cfg))
+    shard = (f", {mine} in shard {cfg.shard.index} of {cfg.shard.count}"
+             if cfg.shard.count > 1 else "")
+    print(f"{args.config}: ok ({_n(len(cfg.devices), 'device')}{shard}, "
+          f"{_n(len(cfg.overrides), 'override')}, {_n(len(cfg.plant), 'span')})")
     return EXIT_OK
+
+
+def _n(count: int, word: str) -> str:
+    """'1 device', '2 devices'."""
+    return f"{count} {word if count == 1 else word + 's'}"
 
 
 # -- run / demo ---------------------------------------------------------------------------
@@ -170,16 +178,15 @@ def cmd_validate(args: argparse.Namespace) -> int:
 
 def cmd_run(args: argparse.Namespace) -> int:
     from lightwarden.exporters.app.runtime import Service
-    from lightwarden.exporters.app.wiring import build_monitor
+    from lightwarden.exporters.app.wiring import preflight
 
     cfg, base = _load(args.config)
-    monitor = build_monitor(cfg, base_dir=base, state_dir=_state_dir(args, cfg, base))
-    monitor.build_sources()
+    monitor = preflight(cfg, base_dir=base, state_dir=_state_dir(args, cfg, base))
     # The listening socket first: a start that fails (port in use) leaves no files.
     service = Service(monitor, cfg, base, config_path=args.config)
     monitor.open_history()
-    print(f"lightwarden: {len(cfg.devices)} devices; metrics at {service.url}/metrics",
-          flush=True)
+    print(f"lightwarden: {_n(len(monitor.sources), 'device')}; metrics at "
+          f"{service.url}/metrics", flush=True)
     service.serve()
     return EXIT_OK
 
@@ -410,6 +417,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     v = sub.add_parser("validate", help="check a site config without polling")
     v.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    _state_option(v)
     v.set_defaults(func=cmd_validate)
 
     lab = sub.add_parser("lab", help="serve only the simulated lab (SNMP and SSH)")

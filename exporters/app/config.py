@@ -257,17 +257,28 @@ def reference_problems(cfg: SiteConfig) -> list[tuple[tuple[Any, ...], str]]:
         elif cred.given()[0] not in credential_kinds(d.protocol):
             problems.append((where, f"device uses {d.protocol} but {d.credentials!r} is "
                                     f"{cred.given()[0]}"))
+    # One problem per root cause: a device missing (renamed, mistyped) is reported once,
+    # at its first reference, with how many more there are, not once per plant end.
+    unknown: dict[str, list[tuple[Any, ...]]] = {}
     for i, o in enumerate(cfg.overrides):
         if o.port is not None and o.port.split()[0] not in seen:
-            problems.append((("overrides", i, "port"), f"no device named {o.port.split()[0]!r}"))
+            unknown.setdefault(o.port.split()[0], []).append(("overrides", i, "port"))
     for i, sp in enumerate(cfg.plant):
         for end in ("a", "b"):
             ref = getattr(sp, end)
-            if len(ref.split()) != 2 or ref.split()[0] not in seen:
-                problems.append(
-                    (("plant", i, end), f"{ref!r} is not \"DEVICE PORT\" of a known device")
-                )
+            if len(ref.split()) != 2:
+                problems.append((("plant", i, end), f"{ref!r} is not \"DEVICE PORT\""))
+            elif ref.split()[0] not in seen:
+                unknown.setdefault(ref.split()[0], []).append(("plant", i, end))
+    for name, refs in unknown.items():
+        more = f" (and {len(refs) - 1} more {_plural(len(refs) - 1, 'reference')})" \
+            if len(refs) > 1 else ""
+        problems.append((refs[0], f"no device named {name!r}{more}"))
     return problems
+
+
+def _plural(n: int, word: str) -> str:
+    return word if n == 1 else word + "s"
 
 
 # -- loading with file:line:key errors --------------------------------------------------

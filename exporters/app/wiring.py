@@ -152,6 +152,28 @@ def make_sources(cfg: SiteConfig, base_dir: Path, catalogue: Catalogue,
     return build_sources(cfg, my_devices(cfg), ctx)
 
 
+def preflight(cfg: SiteConfig, *, base_dir: Path, state_dir: Path, alerts: bool = True,
+              clock: Callable[[], float] = time.time) -> Monitor:
+    """The one set of checks `run`, `check` and `validate` make before polling, and the
+    monitor they make it with: a device list (an empty shard of a sharded site is fine),
+    every source built (secrets read, platforms loaded, known_hosts present), the alert
+    destinations' secrets read. Writes nothing; the caller closes the monitor."""
+    if not cfg.devices:
+        raise ConfigError("devices: the list is empty; there is nothing to poll")
+    monitor = build_monitor(cfg, base_dir=base_dir, state_dir=state_dir, alerts=alerts,
+                            clock=clock)
+    try:
+        monitor.build_sources()
+        if alerts:
+            from lightwarden.exporters.app.alerting import destinations
+
+            destinations(cfg, base_dir)
+    except BaseException:
+        monitor.close()
+        raise
+    return monitor
+
+
 def build_monitor(
     cfg: SiteConfig,
     *,

@@ -7,6 +7,7 @@ message names the agent and what was being read, and never a secret.
 
 from __future__ import annotations
 
+import socket
 from collections.abc import Sequence
 from typing import Protocol
 
@@ -114,6 +115,24 @@ class EnginePool:
         self._engines.clear()
 
 
+def reach_problem(host: str, exc: BaseException) -> str:
+    """Plain words for why a transport to ``host`` could not be made: pysnmp wraps name
+    resolution failures in its own error, whose type name says nothing to an operator."""
+    seen: BaseException | None = exc
+    while seen is not None:
+        if isinstance(seen, socket.gaierror):
+            return f"host name {host!r} not found ({seen.strerror or 'name resolution failed'})"
+        if isinstance(seen, OSError) and seen.strerror:
+            return seen.strerror
+        seen = seen.__cause__ or seen.__context__
+    text = str(exc)
+    for marker in ("Name or service not known", "nodename nor servname",
+                   "No address associated", "Temporary failure in name resolution"):
+        if marker in text:
+            return f"host name {host!r} not found ({marker})"
+    return f"{type(exc).__name__}: the address cannot be used"
+
+
 class SnmpSession:
     """One agent reached with one set of credentials."""
 
@@ -150,10 +169,9 @@ class SnmpSession:
                     (self.host, self.port), timeout=self.timeout, retries=self.retries
                 )
             except Exception as exc:  # resolution or socket errors, named below
-                raise SnmpError(
-                    PollErrorKind.TRANSPORT,
-                    f"cannot reach {self.where} for {what}: {type(exc).__name__}",
-                ) from None
+                raise SnmpError(PollErrorKind.TRANSPORT,
+                                f"cannot reach {self.where} for {what}: "
+                                f"{reach_problem(self.host, exc)}") from None
         return self._target
 
     def _fail(self, indication: errind.ErrorIndication, what: str) -> SnmpError:
@@ -162,7 +180,8 @@ class SnmpSession:
             return SnmpError(
                 PollErrorKind.TIMEOUT,
                 f"no answer from {self.where} while reading {what}: "
-                f"{self.retries + 1} tries of {self.timeout:g} s"
+                f"{self.retries + 1} {'try' if self.retries == 0 else 'tries'} of "
+                f"{self.timeout:g} s"
                 + (hint if self.credentials.version == "2c" else ""),
             )
         if isinstance(indication, _AUTH_ERRORS):

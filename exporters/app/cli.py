@@ -358,6 +358,30 @@ def _port(text: str) -> int:
 
 
 
+_CONFIG_HELP = "the site config (YAML; deploy/site.example.yaml is an annotated example)"
+
+#: environment variables lightwarden itself reads (README "Environment")
+ENVIRONMENT = {
+    "STATE_DIRECTORY": "the state directory, when neither --state-dir nor state_dir is set "
+                       "(systemd's StateDirectory= sets it)",
+    "XDG_STATE_HOME": "the per-user state base (default ~/.local/state)",
+    "LIGHTWARDEN_SNMP_AUTH_KEY": "`check HOST --v3-user`: the SNMPv3 authentication key "
+                                 "(another variable with --auth-key-env)",
+    "LIGHTWARDEN_SNMP_PRIV_KEY": "`check HOST --v3-user`: the SNMPv3 privacy key "
+                                 "(another variable with --priv-key-env)",
+    "LIGHTWARDEN_DEBUG": "set to 1: show the traceback of an unexpected error",
+}
+
+
+def _version() -> str:
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("lightwarden")
+    except PackageNotFoundError:
+        return "(not installed)"
+
+
 def _state_option(p: argparse.ArgumentParser) -> None:
     p.add_argument("--state-dir", metavar="DIR",
                    help="where history, alert outbox and saved state live (default: the "
@@ -369,8 +393,11 @@ def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="lightwarden",
         description="Optical diagnostics monitor: windows, margins, conditions, alerts.",
+        epilog="environment: " + "; ".join(f"{k}: {v}" for k, v in ENVIRONMENT.items()),
     )
     p.add_argument("-v", "--verbose", action="count", default=0, help="more logging (-vv)")
+    p.add_argument("--version", action="version", version=f"lightwarden {_version()}",
+                   help="print the version and exit")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
 
     d = sub.add_parser("demo", help="run the simulated lab and the monitor in one process")
@@ -393,12 +420,12 @@ def build_parser() -> argparse.ArgumentParser:
     d.set_defaults(func=cmd_demo)
 
     r = sub.add_parser("run", help="the monitor daemon")
-    r.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    r.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help=_CONFIG_HELP)
     _state_option(r)
     r.set_defaults(func=cmd_run)
 
     c = sub.add_parser("check", help="poll every device once and print each optic")
-    c.add_argument("-c", "--config", metavar="SITE.yaml")
+    c.add_argument("-c", "--config", metavar="SITE.yaml", help=_CONFIG_HELP)
     c.add_argument("target", nargs="?", metavar="HOST[:PORT]", help="one SNMP device, ad hoc")
     c.add_argument("--json", action="store_true", help="print a JSON array")
     c.add_argument("--community", help="SNMP v2c community (visible to other local users; "
@@ -406,17 +433,23 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--community-env", metavar="VAR", help="read the community from VAR")
     c.add_argument("--v3-user", metavar="USER", help="SNMPv3 user (authPriv)")
     c.add_argument("--auth-protocol", default="SHA-256",
-                   choices=["SHA", "SHA-224", "SHA-256", "SHA-384", "SHA-512"])
-    c.add_argument("--priv-protocol", default="AES-128", choices=["AES-128", "AES-192", "AES-256"])
-    c.add_argument("--auth-key-env", default="LIGHTWARDEN_SNMP_AUTH_KEY", metavar="VAR")
-    c.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR")
+                   choices=["SHA", "SHA-224", "SHA-256", "SHA-384", "SHA-512"],
+                   help="SNMPv3 authentication protocol (default SHA-256)")
+    c.add_argument("--priv-protocol", default="AES-128", choices=["AES-128", "AES-192", "AES-256"],
+                   help="SNMPv3 privacy protocol (default AES-128)")
+    c.add_argument("--auth-key-env", default="LIGHTWARDEN_SNMP_AUTH_KEY", metavar="VAR",
+                   help="read the SNMPv3 authentication key from VAR "
+                        "(default LIGHTWARDEN_SNMP_AUTH_KEY)")
+    c.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR",
+                   help="read the SNMPv3 privacy key from VAR (default LIGHTWARDEN_SNMP_PRIV_KEY)")
     c.add_argument("--timeout", type=float, default=2.0, help="seconds per SNMP request")
-    c.add_argument("--retries", type=int, default=1)
+    c.add_argument("--retries", type=int, default=1,
+                   help="SNMP retries after the first try (default 1)")
     _state_option(c)
     c.set_defaults(func=cmd_check)
 
     v = sub.add_parser("validate", help="check a site config without polling")
-    v.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    v.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help=_CONFIG_HELP)
     _state_option(v)
     v.set_defaults(func=cmd_validate)
 
@@ -424,7 +457,8 @@ def build_parser() -> argparse.ArgumentParser:
     lab.add_argument("--port", type=_port, default=16161,
                      help="first port: device i answers SNMP (UDP) and SSH (TCP) on PORT+i")
     lab.add_argument("--speed", type=float, default=1.0, help="lab clock speed-up")
-    lab.add_argument("--duration", type=float, default=None, metavar="SECONDS")
+    lab.add_argument("--duration", type=float, default=None, metavar="SECONDS",
+                     help="stop after this many seconds (default: until Ctrl-C)")
     lab.add_argument("--known-hosts", default=None, metavar="FILE",
                      help="where to write the lab's SSH host keys (default: "
                           "lab_known_hosts in the state directory)")
@@ -432,15 +466,16 @@ def build_parser() -> argparse.ArgumentParser:
     lab.set_defaults(func=cmd_lab)
 
     rep = sub.add_parser("report", help="planners' report: ageing links, forecasts, span loss")
-    rep.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    rep.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help=_CONFIG_HELP)
     rep.add_argument("--days", type=float, default=90.0, help="history to fit (default 90)")
-    rep.add_argument("--json", action="store_true")
+    rep.add_argument("--json", action="store_true", help="print JSON instead of text")
     _state_option(rep)
     rep.set_defaults(func=cmd_report)
 
     dec = sub.add_parser("decode", help="decode a module memory map (binary or hex dump)")
-    dec.add_argument("file", metavar="FILE")
-    dec.add_argument("--json", action="store_true")
+    dec.add_argument("file", metavar="FILE",
+                     help="a memory map: raw bytes, or a hex dump as `optics memory` prints")
+    dec.add_argument("--json", action="store_true", help="print JSON instead of text")
     dec.set_defaults(func=cmd_decode)
 
     from lightwarden.exporters.prometheus.alert_rules import build_parser as rules_parser

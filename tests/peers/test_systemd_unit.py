@@ -158,8 +158,10 @@ def test_exec_start_polls_and_exec_reload_reloads(tmp_path):
             assert gauge(scrape(url), "lightwarden_self_config_reload_ok") == 1
             opened = events(hook, "qm-core-a")
 
-            # 1. ExecReload as systemd runs it: add a device, move the margin target.
-            data["devices"] = [every["qm-core-a"], every["qm-dist-a"]]
+            # 1. ExecReload as systemd runs it: add a device, change one (a new source
+            # for it; its open alerts and held conditions stay), move the margin target.
+            changed = dict(every["qm-core-a"], timeout_s=1.5)
+            data["devices"] = [changed, every["qm-dist-a"]]
             data["margins"] = {"sensitivity_db": 4.0, "overload_db": 1.0}
             write_site(etc, data)
             reload_cmd = unit_lines("ExecReload")[0].replace("$MAINPID", str(proc.popen.pid))
@@ -169,6 +171,7 @@ def test_exec_start_polls_and_exec_reload_reloads(tmp_path):
             text = scrape(url)
             assert gauge(text, "lightwarden_rx_margin_target_sensitivity_db") == 4.0
             assert proc.popen.poll() is None  # SIGHUP no longer ends the service
+            assert "(1 added, 0 removed, 1 changed)" in proc.log_tail(100_000)
             time.sleep(3.0)  # a few polls and a resend interval
             # open alerts of the device that stayed are kept: no resolve, no reopen
             later = events(hook, "qm-core-a")[len(opened):]

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 from lightwarden.collector.readings import Quantity
 from lightwarden.rules.assess import MarginTargets
-from lightwarden.rules.findings import Condition
+from lightwarden.rules.findings import Condition, Edge
 from lightwarden.rules.trend import WearVerdict
 
 LASER_CAUTION = (
@@ -103,6 +103,11 @@ class AdviceContext:
     wear: WearVerdict | None = None  # the transmitter feeding this reading
     wear_end: str = "far"  # "near" or "far": where that transmitter sits
     rate_per_day: float | None = None
+    #: The far end from the plant record, and what its transmitter reads (Rx rows)
+    far_device: str = ""
+    far_port: str = ""
+    far_tx_dbm: float | None = None
+    far_tx_condition: Condition | None = None  # the far Tx row's condition when polled
 
 
 #: How much span loss growth is worth mentioning (dB); same modules, so offsets cancel.
@@ -120,6 +125,33 @@ _CLEAN = (
     "check patch cords and look for tight bends; compare span loss with the loss budget."
 )
 _DARK = "Check the far-end transmitter, the patching, and whether the far-end port is admin down."
+_TX_DARK = (
+    "This end's transmitter gives no light (no bias reading to tell why): check the port's "
+    "configuration (shut down, transmitter disabled) and the module; reseat it, and if the "
+    "light does not come back, schedule replacement of the optic at this end."
+)
+_TX_FAULT = (
+    "The transmitter at this end has failed (the module flags TX_FAULT, or its laser is "
+    "driven and gives no light). Schedule replacement of the optic at this end."
+)
+_LOS = (
+    "The module flags loss of signal on this receiver: check the far-end transmitter, the "
+    "patching and the connectors along the path."
+)
+_NOT_READY = (
+    "The module is not in its ready state: check the port configuration and the module's "
+    "seating; reseat it, and replace it if it stays out of the ready state."
+)
+_LATCHED = (
+    "The module latched this flag since it was last read, though the reading is back inside "
+    "its levels: a transient excursion. Look at the history around it and watch for a repeat."
+)
+_OFF_STANDARD = (
+    "Tx power is outside the standard's launch window for this PMD, though inside the "
+    "module's own levels: a compliant far receiver is no longer promised its budget. Check "
+    "that the part suits the PMD on record; if the launch keeps falling, plan replacement of "
+    "the optic at this end."
+)
 _LASER_OFF = (
     "Laser bias is 0 mA: the transmitter is off. Check whether the port or the module's "
     "transmitter was disabled on purpose; if not, schedule replacement of the optic at the "
@@ -140,6 +172,26 @@ def _wear_sentence(ctx: AdviceContext | None) -> str:
     return f" The {end}-end {ctx.wear.reason}: schedule replacement of the optic at the {end} end."
 
 
+def _far_dark(ctx: AdviceContext | None) -> str:
+    """Dark receiver: name the far end and what its transmitter says, when known."""
+    if ctx is None or not ctx.far_device:
+        return _DARK
+    far = f"{ctx.far_device} {ctx.far_port}"
+    tx = ctx.far_tx_condition
+    if tx in (Condition.LASER_OFF, Condition.TX_FAULT) or (
+            tx is Condition.DARK and ctx.far_tx_dbm is None):
+        why = {Condition.LASER_OFF: "its laser is off",
+               Condition.TX_FAULT: "its transmitter has failed"}.get(tx, "it sends no light")
+        return (f"The far end, {far}, is the cause: {why}. Act on that port's alert; this "
+                "receiver will see light again when it does.")
+    if ctx.far_tx_dbm is not None and math.isfinite(ctx.far_tx_dbm):
+        return (f"The far end, {far}, transmits {_fmt(ctx.far_tx_dbm)} dBm, so the light is "
+                "lost on the way: check the patching and the fibre between the two ends "
+                "(a break, a wrong or missing patch cord).")
+    return (f"Check the far-end transmitter on {far}, the patching, and whether that port is "
+            "admin down.")
+
+
 def advise(
     condition: Condition,
     quantity: Quantity,
@@ -158,8 +210,22 @@ def advise(
     condition = Condition(condition)
     if condition in (Condition.HEALTHY, Condition.UNKNOWN):
         return Advice("", "")
+    if condition is Condition.LASER_OFF:
+        return Advice(_LASER_OFF, LASER_CAUTION)
+    if condition is Condition.TX_FAULT:
+        return Advice(_TX_FAULT, LASER_CAUTION)
+    if condition is Condition.LOSS_OF_SIGNAL:
+        return Advice(_LOS, LASER_CAUTION)
+    if condition is Condition.NOT_READY:
+        return Advice(_NOT_READY, LASER_CAUTION)
+    if condition in (Condition.LATCHED_ALARM, Condition.LATCHED_WARNING):
+        return Advice(_LATCHED, "")
+    if condition is Condition.OFF_STANDARD:
+        return Advice(_OFF_STANDARD, LASER_CAUTION)
     if condition is Condition.DARK:
-        return Advice(_DARK + _wear_sentence(context), LASER_CAUTION)
+        if quantity is Quantity.TX_POWER:
+            return Advice(_TX_DARK, LASER_CAUTION)
+        return Advice(_far_dark(context) + _wear_sentence(context), LASER_CAUTION)
     if quantity is Quantity.RX_POWER:
         return _rx_advice(condition, value, low_edge, high_edge, context, targets)
     if quantity is Quantity.TEMPERATURE:
@@ -237,11 +303,16 @@ _QUANTITY_WORDS = {
 _EDGE_WORDS = {
     "overload": "overload",
     "sensitivity": "sensitivity",
+    "launch_min": "launch minimum",
+    "launch_max": "launch maximum",
     "high_alarm": "high alarm",
     "low_alarm": "low alarm",
     "high_warning": "high warning",
     "low_warning": "low warning",
 }
+
+
+_HIGH_EDGES = frozenset(e.word for e in Edge if e.high)
 
 
 def _num(x: float, unit: str) -> str:
@@ -287,11 +358,17 @@ def summarize(
     window_source: str,
 ) -> str:
     """One line saying what is wrong, e.g. "Rx power -2.0 dBm on sfp1 lane 1 is 1.0 dB
-    below overload (-1.0 dBm, pmd-table)"."""
+    below overload (-1.0 dBm, standard)"."""
     condition = Condition(condition)
     where = _where(port, lane)
     if condition is Condition.DARK:
+        if quantity is Quantity.TX_POWER:
+            return f"No light from the transmitter on {where} while the port is admin up"
         return f"No light on {where} while the port is admin up"
+    if condition is Condition.LASER_OFF:
+        return f"The laser on {where} is off: no Tx light and no bias"
+    if condition is Condition.TX_FAULT and (value is None or not math.isfinite(value)):
+        return f"The transmitter on {where} has failed: driven, but no light"
     unit = quantity.unit
     name = _QUANTITY_WORDS[quantity]
     if value is None or not math.isfinite(value):
@@ -306,6 +383,6 @@ def summarize(
         return f"{head} is {gap_text} below {edge}"
     if condition is Condition.NEAR_SENSITIVITY:
         return f"{head} is {gap_text} above {edge}"
-    if condition is Condition.OVERLOADED or edge_name.startswith("high"):
+    if condition is Condition.OVERLOADED or edge_name in _HIGH_EDGES:
         return f"{head} is {gap_text} over {edge}"
     return f"{head} is {gap_text} under {edge}"

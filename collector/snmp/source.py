@@ -6,7 +6,13 @@ import dataclasses
 import logging
 import time
 
-from lightwarden.collector.map_facts import MapFacts, apply_to_identity, facts_from_map, join_note
+from lightwarden.collector.map_facts import (
+    MapFacts,
+    apply_to_identity,
+    facts_from_map,
+    join_note,
+    stale_maps,
+)
 from lightwarden.collector.readings import (
     BatchBuilder,
     PollErrorKind,
@@ -110,6 +116,7 @@ class SnmpSource:
         #: (ifIndex, serial) -> facts from that module's map; kept across rediscoveries
         self._maps: dict[tuple[int, str], MapFacts] = {}
         self._maps_pending = False  # maps still to be read for the current inventory
+        self._map_read_at: dict[tuple[int, str], float] = {}
         self._map_notes: dict[int, tuple[str, ...]] = {}  # ifIndex -> notes for Rx rows
         self.map_reads = 0  # memory maps fetched from the device so far
 
@@ -177,8 +184,8 @@ class SnmpSource:
             inventory = await self._discover(uptime, last_change)
         else:
             inventory.sys_uptime = uptime
-        if self._maps_pending:
-            await self._read_maps(inventory)
+        if self._eeprom_oid is not None and (self._maps_pending or self._maps_due(now)):
+            await self._read_maps(inventory, now)
         live = await session.walk_columns(
             (*SENSOR_LIVE_COLUMNS, *IF_STATUS_COLUMNS), "sensor values and interface status"
         )
@@ -208,7 +215,10 @@ class SnmpSource:
                   inventory.sensor_count)  # fmt: skip
         return inventory
 
-    async def _read_maps(self, inventory: Inventory) -> None:
+    def _maps_due(self, now: float) -> bool:
+        return bool(stale_maps(self._maps, self._map_read_at, now, list(self._maps)))
+
+    async def _read_maps(self, inventory: Inventory, now: float) -> None:
         """Fetch the maps of modules not seen before and apply every module's facts."""
         column = self._eeprom_oid
         assert column is not None
@@ -217,7 +227,8 @@ class SnmpSource:
             for spec in inventory.optics
             if spec.identity.if_index is not None
         }
-        missing = [idx for idx, key in keyed.items() if key not in self._maps]
+        stale = set(stale_maps(self._maps, self._map_read_at, now, keyed.values()))
+        missing = [idx for idx, key in keyed.items() if key in stale]
         try:
             found = await self._fetch_maps(column, missing, len(missing) == len(keyed))
         except SnmpError as exc:
@@ -226,6 +237,7 @@ class SnmpSource:
             return
         for idx in missing:
             data = found.get(idx)
+            self._map_read_at[keyed[idx]] = now
             if isinstance(data, bytes) and data:
                 self._maps[keyed[idx]] = facts_from_map(data)
             else:
@@ -236,6 +248,7 @@ class SnmpSource:
         live_keys = set(keyed.values())
         for key in [k for k in self._maps if k not in live_keys]:
             del self._maps[key]
+            self._map_read_at.pop(key, None)
         for spec in inventory.optics:
             if_index = spec.identity.if_index
             if if_index is None:

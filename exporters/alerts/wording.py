@@ -49,19 +49,22 @@ def describe(event: AlertEvent) -> str:
     parts: list[str] = []
     quantity, source = event.quantity.label, event.window_source.word
     value = _num(event.value)
+    # Optical levels to 0.1 dB (the resolution a reading is worth); volts to 0.01 V.
+    prec = 2 if event.unit == "V" else 1
     parts.append(
-        f"{quantity} {value:.2f} {event.unit}"
+        f"{quantity} {value:.{prec}f} {event.unit}"
         if value is not None
         else f"{quantity} has no usable value"
     )
     edge = _num(event.edge_value)
+    name = event.edge_name.replace("_", " ")
     if edge is not None:
-        parts.append(f"{event.edge_name} edge {edge:.2f} {event.unit} (window from {source})")
+        parts.append(f"{name} edge {edge:.{prec}f} {event.unit} (from {source})")
     elif event.edge_name:
-        parts.append(f"{event.edge_name} edge unknown (window from {source})")
+        parts.append(f"{name} edge unknown (from {source})")
     margin = _num(event.margin_db)
     if margin is not None:
-        parts.append(f"margin {margin:.2f} dB")
+        parts.append(f"margin {margin:.1f} dB")
     rate = _num(event.rate_per_day)
     if rate is not None:
         parts.append(f"moving {rate:+.2f} {_rate_unit(event.unit)}")

@@ -134,7 +134,8 @@ def _adhoc_config(args: argparse.Namespace) -> SiteConfig:
 
     data = {"site": "adhoc", "credentials": {"adhoc": cred},
             "poll": {"timeout_s": args.timeout, "retries": args.retries},
-            "devices": [{"name": host, "host": host, "port": port_n, "credentials": "adhoc"}]}
+            "devices": [{"name": host, "host": host, "port": port_n, "credentials": "adhoc",
+                         **({"eeprom_oid": args.eeprom_oid} if args.eeprom_oid else {})}]}
     return parse_config(yaml.safe_dump(data), "(command line)")
 
 
@@ -442,6 +443,9 @@ def build_parser() -> argparse.ArgumentParser:
                         "(default LIGHTWARDEN_SNMP_AUTH_KEY)")
     c.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR",
                    help="read the SNMPv3 privacy key from VAR (default LIGHTWARDEN_SNMP_PRIV_KEY)")
+    c.add_argument("--eeprom-oid", metavar="OID",
+                   help="also read each module's memory map from this column (OID of a "
+                        "table indexed by ifIndex), as a configured device's eeprom_oid does")
     c.add_argument("--timeout", type=float, default=2.0, help="seconds per SNMP request")
     c.add_argument("--retries", type=int, default=1,
                    help="SNMP retries after the first try (default 1)")
@@ -483,6 +487,13 @@ def build_parser() -> argparse.ArgumentParser:
     ru = sub.add_parser("rules", help="write Prometheus alerting rules for our metrics")
     rules_parser(ru)
     ru.set_defaults(func=cmd_rules)
+
+    from lightwarden.exporters.pages.budget import build_parser as budget_parser
+    from lightwarden.exporters.pages.budget import run as budget_run
+
+    bu = sub.add_parser("budget", help="power budget of a planned link: will it close, which pad")
+    budget_parser(bu)
+    bu.set_defaults(func=budget_run)
     return p
 
 

@@ -12,7 +12,7 @@ import asyncio
 import logging
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -28,7 +28,15 @@ from lightwarden.exporters.store.history import History, HistoryError
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets, assess
 from lightwarden.rules.catalogue import Catalogue
-from lightwarden.rules.findings import SEVERITY_OF, AlertEvent, Assessment, Severity, WindowSource
+from lightwarden.rules.findings import (
+    SEVERITY_OF,
+    AlertEvent,
+    Assessment,
+    Condition,
+    Severity,
+    WindowSource,
+    alert_key,
+)
 from lightwarden.rules.hysteresis import ConditionTracker
 from lightwarden.rules.lifecycle import AlertLifecycle
 from lightwarden.rules.outlook import RxWindow
@@ -40,6 +48,8 @@ from lightwarden.rules.windows import WindowResolver
 log = logging.getLogger("lightwarden.monitor")
 
 _AGEING = (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS)
+#: Conditions of a far transmitter that explain a dark receiver.
+_TX_CAUSES = (Condition.LASER_OFF, Condition.TX_FAULT, Condition.DARK)
 AlertSink = Callable[[list[AlertEvent]], None]
 
 
@@ -178,10 +188,17 @@ class Monitor:
             flag_implausible(outcome.batch)  # a broken sensor's value is never judged
             assessment = assess(outcome.batch, targets=self.targets, tracker=self.parts.tracker,
                                 now=now, resolver=self.parts.resolver)
+            far = self._far_ends(assessment)
             if self.history is not None:
                 self._record(assessment)
             if self._alerts_enabled:
-                events = self.lifecycle.observe(assessment, now, self._context(assessment, now))
+                context = self._context(assessment, now)
+                for k, ctx in far.items():
+                    context[k] = replace(context[k], far_device=ctx.far_device,
+                                         far_port=ctx.far_port, far_tx_dbm=ctx.far_tx_dbm,
+                                         far_tx_condition=ctx.far_tx_condition) \
+                        if k in context else ctx
+                events = self.lifecycle.observe(assessment, now, context)
         elif self._alerts_enabled:
             events = self.lifecycle.mark_stale(outcome.device, now)
         last_good = None
@@ -217,16 +234,57 @@ class Monitor:
         assert self.history is not None
         b = a.batch
         rx = np.flatnonzero(b.quantity == int(Quantity.RX_POWER))
+        assert a.edge_sources is not None
+        # The margin edges' source (sensitivity's, else overload's): what trends and the
+        # report measure margins to.
+        src = np.where(a.edge_sources[:, 0] != int(WindowSource.NONE), a.edge_sources[:, 0],
+                       a.edge_sources[:, 1])
         windows = [
             RxWindow(b.device, b.optics[int(b.optic[i])].port, int(b.lane[i]),
                      b.optics[int(b.optic[i])].pmd, _edge(a.low_edge[i]), _edge(a.high_edge[i]),
-                     WindowSource(int(a.window_source[i])).word, b.taken_at)
+                     WindowSource(int(src[i])).word, b.taken_at)
             for i in rx
         ]
         try:
             self.history.record(b, windows)
         except HistoryError as exc:
             log.error("%s", exc)  # monitoring goes on; the history has a gap
+
+    def _far_ends(self, a: Assessment) -> dict[tuple[str, int, Quantity], AdviceContext]:
+        """For each dark receiver: the far end from the plant and what its Tx last read.
+
+        When that transmitter is itself the cause (its laser off, failed, or dark), the
+        receiver's row is marked as caused by it, so one cause raises one alert.
+        """
+        out: dict[tuple[str, int, Quantity], AdviceContext] = {}
+        b = a.batch
+        dark = np.flatnonzero((a.condition == int(Condition.DARK))
+                              & (b.quantity == int(Quantity.RX_POWER)))
+        for i in dark.tolist():
+            port, lane = b.optics[int(b.optic[i])].port, int(b.lane[i])
+            ref = self.plant.far_end(b.device, port)
+            if ref is None:
+                continue
+            far_dev, far_port = ref
+            tx_dbm, tx_cond = self._far_tx(far_dev, far_port, lane)
+            out[(port, lane, Quantity.RX_POWER)] = AdviceContext(
+                far_device=far_dev, far_port=far_port, far_tx_dbm=tx_dbm,
+                far_tx_condition=tx_cond)
+            if tx_cond in _TX_CAUSES:
+                a.cause[i] = alert_key(far_dev, far_port, lane, Quantity.TX_POWER)
+        return out
+
+    def _far_tx(self, device: str, port: str, lane: int) -> tuple[float | None, Condition | None]:
+        view = self._views.get(device)
+        fa = view.assessment if view is not None else None
+        if fa is None:
+            return None, None
+        fb = fa.batch
+        for j in np.flatnonzero(fb.quantity == int(Quantity.TX_POWER)).tolist():
+            if int(fb.lane[j]) == lane and fb.optics[int(fb.optic[j])].port == port:
+                value = float(fb.value[j])
+                return (value if np.isfinite(value) else None), Condition(int(fa.condition[j]))
+        return None, None
 
     def _context(self, a: Assessment, now: float) -> dict[tuple[str, int, Quantity],
                                                            AdviceContext]:

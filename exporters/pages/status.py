@@ -10,6 +10,7 @@ import json
 import time
 from html import escape
 
+from lightwarden.exporters.pages.budget import mount as mount_budget
 from lightwarden.exporters.pages.http import HttpRequest, HttpServer, Response
 from lightwarden.exporters.pages.report import build_report, render_report, report_json
 from lightwarden.exporters.pages.rows import OpticRow, optic_rows, worst_first
@@ -40,6 +41,7 @@ class StatusPage:
         server.add_route("/api/optics", self.api)
         server.add_route("/report", self.report_text)
         server.add_route("/api/report", self.report_api)
+        mount_budget(server)
 
     def rows(self) -> tuple[list[OpticRow], list[dict[str, object]]]:
         rows: list[OpticRow] = []
@@ -144,7 +146,8 @@ class StatusPage:
             "<h2>Optics</h2><table><tr><th class=l>device</th><th class=l>port</th>"
             "<th>lane</th><th class=l>PMD</th><th>Rx dBm</th><th>Tx dBm</th><th>bias mA</th>"
             "<th>temp °C</th><th>overload</th><th>sensitivity</th><th>to overload dB</th>"
-            "<th>to sensitivity dB</th><th class=l>window</th><th class=l>condition</th>"
+            "<th>to sensitivity dB</th><th class=l>edges from</th>"
+            "<th class=l>module levels (Rx)</th><th class=l>condition</th>"
             "<th class=l>notes</th></tr>"
         )
         for r in rows:
@@ -156,9 +159,10 @@ class StatusPage:
                     r.rx_power_dbm, r.tx_power_dbm, r.bias_ma, r.temperature_c,
                     r.rx_overload_dbm, r.rx_sensitivity_dbm, r.margin_to_overload_db,
                     r.margin_to_sensitivity_db))
-                + f"<td class=l>{escape(r.window_source)}</td>"
-                f"<td class=l>{escape(r.condition)}</td>"
-                f"<td class=l>{escape('; '.join(r.value_notes))}</td></tr>"
+                + f"<td class=l>{escape(_edge_sources(r))}</td>"
+                f"<td class=l>{escape(_levels(r))}</td>"
+                f"<td class=l>{escape(_condition(r))}</td>"
+                f"<td class=l>{escape('; '.join(r.notes))}</td></tr>"
             )
         out.append("</table>")
         out.append(f"<p class=caution>{escape(LASER_CAUTION)}</p>")
@@ -179,6 +183,44 @@ def _clock(at: object) -> str:
     if not isinstance(at, int | float) or not at:
         return "?"
     return time.strftime("%Y-%m-%d %H:%M:%S", time.localtime(at))
+
+
+def _edge_sources(r: OpticRow) -> str:
+    """Who declared the margin edges, e.g. "standard" or "sensitivity site, overload
+    standard"."""
+    lo = r.rx_edges.get("sensitivity", {}).get("source")
+    hi = r.rx_edges.get("overload", {}).get("source")
+    if lo == hi:
+        return str(lo or r.window_source)
+    return f"sensitivity {lo or '–'}, overload {hi or '–'}"
+
+
+def _levels(r: OpticRow) -> str:
+    """The declared Rx levels beside the margin edges: "alarm -18.0/+2.5, warning
+    -16.0/+0.5 (module)"."""
+    e = r.rx_edges
+    parts, sources = [], set()
+    for word, lo, hi in (("alarm", "low_alarm", "high_alarm"),
+                         ("warning", "low_warning", "high_warning")):
+        if lo in e or hi in e:
+            parts.append(f"{word} {_lv(e.get(lo))}/{_lv(e.get(hi))}")
+            sources |= {str(x["source"]) for x in (e.get(lo), e.get(hi)) if x}
+    if not parts:
+        return "–"
+    return ", ".join(parts) + f" ({', '.join(sorted(sources))})"
+
+
+def _lv(edge: dict[str, object] | None) -> str:
+    v = edge.get("value") if edge else None
+    return f"{v:+.1f}" if isinstance(v, float) else "–"
+
+
+def _condition(r: OpticRow) -> str:
+    """The condition, with the edge it is about and who declared it."""
+    e = r.edge
+    if not e or r.condition == "healthy":
+        return r.condition
+    return f"{r.condition} ({e.get('source')} {str(e.get('name', '')).replace('_', ' ')})"
 
 
 def _n(v: float | None) -> str:

@@ -167,9 +167,14 @@ def test_dark_port_and_its_disabled_far_end(run):
     s = _settled(run)
     # dark_port story at qm-dist-b sfp20: the far transmitter (qm-core-a sfp20) is off.
     assert s.condition("qm-dist-b", "sfp20") == "dark"
-    assert s.value("lightwarden_optic_dark", device="qm-dist-b", port="sfp20", lane="1") == 1.0
+    # the dark receiver is explained by the laser that is off at the far end
+    (dark,) = s.samples("lightwarden_reading_condition", device="qm-dist-b", port="sfp20",
+                        quantity="rx_power")
+    assert dark.labels["condition"] == "dark"
+    assert dark.labels["cause"] == "qm-core-a|sfp20|1|tx_power"
     assert s.samples("lightwarden_rx_power_dbm", device="qm-dist-b", port="sfp20") == []
-    assert s.condition("qm-core-a", "sfp20") == "dark"
+    # this end's laser is off (no Tx light, bias 0 mA): laser_off, not "dark"
+    assert s.condition("qm-core-a", "sfp20") == "laser_off"
     assert s.samples("lightwarden_reading_unavailable", device="qm-core-a", port="sfp20",
                      quantity="tx_power", reason="no_light")
     # its receiver still gets light from qm-dist-b
@@ -189,7 +194,7 @@ def test_missing_bias_sensor_is_unknown(run):
 
 
 def test_hover_never_flaps_faster_than_the_hold(run):
-    """hover story: Rx swings around the 3 dB margin target above the module's low alarm."""
+    """hover story: Rx swings around the 3 dB margin target above the standard's sensitivity."""
     _, scrapes, _ = run
     seen: list[tuple[float, str]] = []  # (poll time of qm-core-b, condition)
     for s in scrapes:

@@ -15,6 +15,7 @@ stops, prints it and writes the input as crash-* in the working directory.
 
 from __future__ import annotations
 
+import contextlib
 import sys
 
 import atheris
@@ -53,18 +54,14 @@ def fuzz_cli(data: bytes) -> None:
 
 def fuzz_config(data: bytes) -> None:
     text = atheris.FuzzedDataProvider(data).ConsumeUnicodeNoSurrogates(4096)
-    try:
+    with contextlib.suppress(ConfigError):
         parse_config(text, "fuzz.yaml")
-    except ConfigError:
-        pass
 
 
 def fuzz_eeprom(data: bytes) -> None:
     if len(data) % 2:
-        try:
+        with contextlib.suppress(HexDumpError):
             parse_hexdump(data.decode("latin-1"))
-        except HexDumpError:
-            pass
     else:
         decode(data)  # reports problems in its result, never raises
 

@@ -44,7 +44,9 @@ def test_promtool_check_rules():
     promtool = require_binary("promtool")
     res = run([promtool, "check", "rules", str(RULES)])
     assert res.returncode == 0, res.stdout + res.stderr
-    assert "SUCCESS: 10 rules found" in res.stdout
+    # one rule per alerting condition (rules/lifecycle.py ALERTNAMES), drift, and the
+    # three device/monitor rules
+    assert "SUCCESS: 17 rules found" in res.stdout
 
 
 @pytest.mark.external
@@ -70,10 +72,10 @@ def test_unit_tests_notice_a_changed_threshold(tmp_path):
 def test_cli_writes_valid_rules_with_custom_params(tmp_path):
     promtool = require_binary("promtool")
     out = tmp_path / "rules.yml"
-    argv = ["-o", str(out), "--margin-for", "10m", "--overload-target-db", "2.5"]
+    argv = ["-o", str(out), "--condition-for", "10m", "--drift-db-per-day", "2.5"]
     assert main(argv) == 0
     text = out.read_text()
-    assert "for: 10m" in text and "< 2.5)" in text
+    assert "for: 10m" in text and "< -2.5" in text
     res = run([promtool, "check", "rules", str(out)])
     assert res.returncode == 0, res.stdout + res.stderr
 

@@ -18,8 +18,10 @@ from lightwarden.fixtures.lab.model import LAB_ENV, LAB_SSH_PASSWORD
 from lightwarden.fixtures.lab.server import lab_site_config
 from lightwarden.rules.advice import LASER_CAUTION
 
-SEVERITY = {"healthy": 0, "unknown": 1, "near_sensitivity": 2, "near_overload": 2,
-            "warning": 2, "below_sensitivity": 3, "overloaded": 3, "alarm": 3, "dark": 3}
+SEVERITY = {"healthy": 0, "unknown": 1, "latched_warning": 1, "near_sensitivity": 2,
+            "near_overload": 2, "warning": 2, "off_standard": 2, "not_ready": 2,
+            "latched_alarm": 2, "below_sensitivity": 3, "overloaded": 3, "alarm": 3, "dark": 3,
+            "laser_off": 3, "tx_fault": 3, "loss_of_signal": 3}
 
 
 @pytest.fixture(scope="module")

@@ -59,24 +59,38 @@ def test_unknown_pmd_is_noted_and_leaves_power_unjudged():
     assert "10GBASE-XYZ" in ws.window(RX).note
 
 
-def test_module_thresholds_beat_the_pmd_table():
-    # Vendor-style thresholds looser than the PMD: the module wins, a note says by how much.
+def test_both_judgements_keep_their_own_edges():
+    # Vendor-style levels looser than the PMD: the standard gives the margin edges, the
+    # module its own alarm and warning levels, and a note says by how much it is looser.
     t = Thresholds(high_alarm=2.5, low_alarm=-18.0, high_warning=0.5, low_warning=-16.0)
     rx = resolve_windows(optic(thresholds={RX: t}), CAT).window(RX, 1)
-    assert (rx.low_edge, rx.high_edge, rx.low_warning, rx.high_warning) == (-18.0, 2.5, -16.0, 0.5)
+    # source: standards.md 10GBASE-LR Rx min -14.4 / overload +0.5 (IEEE 802.3 cl.52, verified)
+    assert (rx.low_edge, rx.high_edge) == (-14.4, 0.5)
+    assert (rx.low_alarm, rx.high_alarm, rx.low_warning, rx.high_warning) == (
+        -18.0, 2.5, -16.0, 0.5)
+    assert rx.sources == (WindowSource.PMD_TABLE, WindowSource.PMD_TABLE) + (
+        WindowSource.MODULE,) * 4
     assert rx.source is WindowSource.MODULE
-    # 10GBASE-LR Rx min -14.4 (verified): -18.0 is 3.6 dB looser; overload +0.5: 2.0 dB
+    # -18.0 is 3.6 dB looser than -14.4; +2.5 is 2.0 dB above +0.5
+    assert "module looser than the standard" in rx.note
     assert "3.6 dB below the 10GBASE-LR minimum average receive power -14.4" in rx.note
     assert "2.0 dB above the 10GBASE-LR overload 0.5" in rx.note
 
 
-def test_per_edge_mixing_module_and_pmd():
-    t = Thresholds(high_alarm=-1.0)  # module declares only the overload side
-    rx = resolve_windows(optic(thresholds={RX: t}), CAT).window(RX, 1)
-    assert (rx.low_edge, rx.high_edge) == (-14.4, -1.0)
-    assert rx.sources[:2] == (WindowSource.PMD_TABLE, WindowSource.MODULE)
-    assert rx.source is WindowSource.MODULE  # the most authoritative contributor
-    assert "sensitivity from pmd-table, overload from module" in rx.note
+def test_margin_edges_fall_back_to_module_alarms_without_a_pmd():
+    t = Thresholds(high_alarm=2.5, low_alarm=-18.0)
+    rx = resolve_windows(optic(pmd="", thresholds={RX: t}), CAT).window(RX, 1)
+    assert (rx.low_edge, rx.high_edge, rx.low_alarm, rx.high_alarm) == (-18.0, 2.5, -18.0, 2.5)
+    assert rx.sources[:4] == (WindowSource.MODULE,) * 4
+
+
+def test_per_edge_mixing_site_and_standard():
+    o = WindowOverride(quantity=RX, port="eth1/7", rx_sensitivity=-12.0)
+    rx = resolve_windows(optic(), CAT, [o]).window(RX, 1)
+    assert (rx.low_edge, rx.high_edge) == (-12.0, 0.5)
+    assert rx.sources[:2] == (WindowSource.SITE, WindowSource.PMD_TABLE)
+    assert rx.source is WindowSource.SITE  # the most authoritative contributor
+    assert "sensitivity from site, overload from standard" in rx.note
 
 
 def test_blank_module_thresholds_are_ignored():
@@ -94,18 +108,27 @@ def test_non_finite_module_edges_are_treated_as_absent():
 
 
 def test_crossed_edges_keep_the_more_authoritative():
-    # Module overload -20 dBm lies below the PMD sensitivity -14.4: the PMD edge goes.
+    # A module high alarm of -20 dBm lies below the standard's -14.4 dBm sensitivity: it
+    # would flag every reading, so the module's level goes and the standard stays.
     rx = resolve_windows(optic(thresholds={RX: Thresholds(high_alarm=-20.0)}), CAT).window(RX)
-    assert rx.high_edge == -20.0 and math.isnan(rx.low_edge)
-    assert "sensitivity -14.4 (pmd-table) dropped" in rx.note
+    assert (rx.low_edge, rx.high_edge) == (-14.4, 0.5)
+    assert math.isnan(rx.high_alarm)
+    assert "high alarm -20 (module) dropped" in rx.note
+    # Site edges crossing the standard's: the site wins.
+    o = WindowOverride(quantity=RX, port="eth1/7", rx_overload=-16.0)
+    rx = resolve_windows(optic(), CAT, [o]).window(RX)
+    assert rx.high_edge == -16.0 and math.isnan(rx.low_edge)
+    assert "sensitivity -14.4 (standard) dropped" in rx.note
 
 
-def test_site_override_beats_module_per_edge():
+def test_site_override_beats_module_and_standard_per_edge():
     t = Thresholds(high_alarm=2.5, low_alarm=-18.0, high_warning=0.5, low_warning=-16.0)
     o = WindowOverride(quantity=RX, part_number="hgl-10l-31", rx_sensitivity=-15.0)
     rx = resolve_windows(optic(thresholds={RX: t}), CAT, [o]).window(RX, 1)
-    assert (rx.low_edge, rx.high_edge) == (-15.0, 2.5)
-    assert rx.sources[:2] == (WindowSource.SITE, WindowSource.MODULE)
+    assert (rx.low_edge, rx.high_edge) == (-15.0, 0.5)
+    assert (rx.low_alarm, rx.high_alarm) == (-15.0, 2.5)
+    assert rx.sources[:4] == (WindowSource.SITE, WindowSource.PMD_TABLE, WindowSource.SITE,
+                              WindowSource.MODULE)
     assert rx.source is WindowSource.SITE
 
 

@@ -46,7 +46,8 @@ class StatusPage:
     def rows(self) -> tuple[list[OpticRow], list[dict[str, object]]]:
         rows: list[OpticRow] = []
         devices: list[dict[str, object]] = []
-        now = self.monitor.clock()
+        # the monitor's clock where it has one (ages then follow its time)
+        now = getattr(self.monitor, "clock", time.time)()
         for name, view in sorted(self.monitor.views.items()):
             o = view.outcome
             last = view.assessment or view.last_good
@@ -63,7 +64,9 @@ class StatusPage:
                 age = view.stale_for(now)
                 for r in optic_rows(view.last_good, self.monitor.targets):
                     r.stale_s = age
-                    r.value_notes.insert(0, f"stale: read {_age(age)} ago")
+                    stale = f"stale: read {_age(age)} ago"
+                    r.value_notes.insert(0, stale)
+                    r.notes.insert(0, stale)
                     rows.append(r)
         worst_first(rows, self.monitor.targets)
         return rows, devices

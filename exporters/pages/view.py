@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Protocol
 
@@ -39,9 +39,6 @@ class DeviceView:
 
 
 class MonitorView(Protocol):
-    #: the monitor's clock (epoch seconds): ages on the page are measured with it
-    clock: Callable[[], float]
-
     @property
     def site(self) -> str: ...
     @property

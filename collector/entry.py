@@ -116,3 +116,5 @@ class BuildContext:
     retries: int
     pmd_names: tuple[str, ...] = ()  # PMD names a device's text may mention
     shared: SharedParts = field(default_factory=SharedParts)
+    #: relative state paths (the SSH known_hosts file) resolve here; None: base_dir
+    state_dir: Path | None = None

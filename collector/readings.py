@@ -63,6 +63,18 @@ _BY_LABEL = {label: q for q, label in _LABELS.items()}
 
 #: Quantities measured per lane; the others are per module (stored with lane 0).
 LANE_QUANTITIES = (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS)
+
+#: Highest lane number a module can have: CMIS allows up to 4 banks of 8 lanes (from
+#: memory); SFF-8636 has 4, SFF-8472 one. Lanes are stored as int16.
+MAX_LANE = 32
+#: the lane stored for a row whose reported lane was out of range (status INVALID)
+BAD_LANE = -1
+
+
+def is_ascii_number(text: str) -> bool:
+    """Only ASCII 0-9: ``str.isdigit`` also accepts superscripts and other scripts'
+    digits, some of which ``int`` then refuses."""
+    return text.isascii() and text.isdigit()
 MODULE_QUANTITIES = (Quantity.TEMPERATURE, Quantity.SUPPLY)
 
 
@@ -189,6 +201,11 @@ class BatchBuilder:
         if status is ReadingStatus.OK and (value is None or not math.isfinite(value)):
             status = ReadingStatus.INVALID
             note = note or "value is not a finite number"
+        if not 0 <= lane <= MAX_LANE:
+            # One impossible lane number must cost its row, never the device's poll
+            # (it would overflow the int16 lane column).
+            note = f"lane {lane} out of range (0..{MAX_LANE})"
+            lane, status = BAD_LANE, ReadingStatus.INVALID
         if note:
             self._notes[len(self._value)] = note
         self._optic.append(optic)
@@ -241,6 +258,10 @@ class PollErrorKind(StrEnum):
     INTERNAL = "internal"  # a bug of ours, caught so the poll loop goes on
 
 
+#: device health words, best first (PollOutcome.health)
+HEALTH_WORDS = ("up", "partial", "down")
+
+
 @dataclass(slots=True)
 class PollOutcome:
     """How one poll of one device went: the batch when it worked, the error when not."""
@@ -255,3 +276,16 @@ class PollOutcome:
     @property
     def ok(self) -> bool:
         return self.batch is not None and not self.error
+
+    @property
+    def health(self) -> str:
+        """``up`` (every row read), ``partial`` (rows read, some lost: the error says
+        which), or ``down`` (nothing read). The one word page, JSON and metrics use."""
+        if self.batch is None:
+            return "down"
+        return "partial" if self.error else "up"
+
+    @property
+    def reason(self) -> str:
+        """Why the device is not ``up`` ("" when it is)."""
+        return self.error

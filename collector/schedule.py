@@ -190,9 +190,13 @@ class PollScheduler:
                 outcome = await self._run_poll(device, now)
             device.polls += 1
             device.last_outcome = outcome
-            if outcome.ok:
+            # A partial poll (rows read, some lost) is a success for the schedule: the
+            # device answers, so backing it off would only make its data older.
+            if outcome.batch is not None:
                 device.consecutive_failures = 0
                 device.next_allowed = 0.0
+                if outcome.error:
+                    log.info("%s: partial poll: %s", name, outcome.error)
             else:
                 device.consecutive_failures += 1
                 # Half an interval of slack so jitter cannot push a due poll one more round.

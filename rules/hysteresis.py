@@ -34,12 +34,23 @@ choices, not a standard's.
 State is columnar (numpy arrays) and keyed by (device, port, lane, quantity); the
 optic's serial number is part of the identity, so a swapped module starts afresh.
 Time is always passed in; nothing here reads a clock.
+
+**Saved state.** A restarted monitor that began afresh would adopt each row's first
+sample at once, so a reading held inside its hysteresis band (say 0.2 dB better than the
+near-sensitivity edge, not yet 0.5 dB) would resolve on restart and reopen later.
+:meth:`ConditionTracker.snapshot_devices` gives each device's held state as plain JSON
+data (schema ``TRACKER_SCHEMA``), which the app saves beside the alert lifecycle in one
+transaction; :meth:`ConditionTracker.load_device` takes it up again. Condition and
+quantity codes are stored as integers, so a code this version does not know (saved by a
+newer one) drops only that row, which then starts afresh.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+import math
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -56,6 +67,11 @@ RANK = SEVERITY_OF
 
 _UNKNOWN = int(Condition.UNKNOWN)
 _WORSE, _BETTER, _TO_UNKNOWN = 1, -1, 2
+
+#: version of the saved-state layout; a snapshot of another version is refused whole
+TRACKER_SCHEMA = 1
+_ROW_FIELDS = ("port", "lane", "quantity", "identity", "condition", "since", "candidate",
+               "candidate_since", "last_seen")
 
 
 # What identifies one poll's row layout: (port, serial) per optic, then the optic, lane
@@ -197,7 +213,8 @@ class ConditionTracker:
     ``assess`` computed; it returns the held conditions aligned with the batch rows.
     """
 
-    __slots__ = ("_identity", "_keys", "_last_seen", "_layouts", "_size", "_state", "policy")
+    __slots__ = ("_by_device", "_dirty", "_identity", "_keys", "_last_seen", "_layouts",
+                 "_size", "_state", "policy")
 
     def __init__(self, policy: HysteresisPolicy | None = None, capacity: int = 1024) -> None:
         self.policy = policy or HysteresisPolicy()
@@ -209,6 +226,9 @@ class ConditionTracker:
         # device -> (layout signature, slot index per batch row); polls of one device
         # usually repeat the same rows in the same order, so the key lookups run once.
         self._layouts: dict[str, tuple[_Layout, np.ndarray]] = {}
+        self._by_device: dict[str, list[RowKey]] = {}
+        # devices whose held state changed since the last snapshot_devices(dirty=True)
+        self._dirty: set[str] = set()
 
     def __len__(self) -> int:
         return len(self._keys)
@@ -238,6 +258,7 @@ class ConditionTracker:
                 self._size += 1
                 self._grow(self._size)
                 self._keys[key] = slot
+                self._by_device.setdefault(key[0], []).append(key)
                 self._identity.append(ident)
                 fresh.append(slot)
             elif self._identity[slot] != ident:
@@ -262,7 +283,10 @@ class ConditionTracker:
     ) -> np.ndarray:
         """Advance the given rows to time ``now``; returns their held conditions."""
         idx = self.slots(keys, identities if identities is not None else [""] * len(keys))
-        return self._advance(idx, instant, strict, now)
+        held, changed = self._advance(idx, instant, strict, now)
+        if changed:
+            self._dirty.update(k[0] for k in keys)
+        return held
 
     def update_batch(
         self, batch: ReadingBatch, instant: np.ndarray, strict: np.ndarray, now: float
@@ -287,13 +311,18 @@ class ConditionTracker:
             ids = [optics[o].serial for o in batch.optic.tolist()]
             idx = self.slots(keys, ids)
             self._layouts[batch.device] = (signature, idx)
-        return self._advance(idx, instant, strict, now)
+        held, changed = self._advance(idx, instant, strict, now)
+        if changed:
+            self._dirty.add(batch.device)
+        return held
 
     def _advance(
         self, idx: np.ndarray, instant: np.ndarray, strict: np.ndarray, now: float
-    ) -> np.ndarray:
+    ) -> tuple[np.ndarray, bool]:
+        """Step the rows at ``idx``: their held conditions, and whether any held state
+        changed (so it is to be saved)."""
         if idx.size == 0:
-            return np.empty(0, dtype=np.int8)
+            return np.empty(0, dtype=np.int8), False
         s = self._state
         before = TrackState(s.condition[idx], s.since[idx], s.candidate[idx],
                             s.candidate_since[idx])
@@ -303,7 +332,12 @@ class ConditionTracker:
         s.candidate[idx] = after.candidate
         s.candidate_since[idx] = after.candidate_since
         self._last_seen[idx] = now
-        return after.condition
+        changed = not (np.array_equal(before.condition, after.condition)
+                       and np.array_equal(before.candidate, after.candidate)
+                       and np.array_equal(before.since, after.since, equal_nan=True)
+                       and np.array_equal(before.candidate_since, after.candidate_since,
+                                          equal_nan=True))
+        return after.condition, changed
 
     def get(self, key: RowKey) -> Tracked | None:
         slot = self._keys.get(key)
@@ -338,4 +372,132 @@ class ConditionTracker:
         self._keys = {k: i for i, (k, _) in enumerate(keep)}
         self._state, self._last_seen, self._size = compact, last, len(order)
         self._layouts.clear()
+        gone = set(self._by_device)
+        self._by_device = {}
+        for k in self._keys:
+            self._by_device.setdefault(k[0], []).append(k)
+        # a device with rows forgotten has a smaller snapshot to save (or none at all)
+        self._dirty.update(gone)
         return forgotten
+
+    # -- saved state -------------------------------------------------------------------
+    @property
+    def dirty(self) -> bool:
+        """Whether some device's held state changed since it was last taken to save."""
+        return bool(self._dirty)
+
+    def devices(self) -> list[str]:
+        return sorted(self._by_device)
+
+    def snapshot_devices(self, devices: Iterable[str] | None = None, *,
+                         dirty: bool = False) -> dict[str, dict[str, Any]]:
+        """Held state per device as JSON-ready data: the given devices, every device, or
+        (``dirty=True``) those changed since the last such call, which it clears. A device
+        with no rows left maps to an empty row list."""
+        if dirty:
+            names, self._dirty = sorted(self._dirty), set()
+        else:
+            names = sorted(devices) if devices is not None else self.devices()
+        return {d: self._snapshot_device(d) for d in names}
+
+    def _snapshot_device(self, device: str) -> dict[str, Any]:
+        s = self._state
+        rows: list[list[Any]] = []
+        for key in self._by_device.get(device, ()):
+            slot = self._keys[key]
+            cond = int(s.condition[slot])
+            if cond == NO_CONDITION:
+                continue
+            cand = int(s.candidate[slot])
+            rows.append([key[1], key[2], key[3], self._identity[slot], cond,
+                         _num(s.since[slot]), None if cand == NO_CONDITION else cand,
+                         None if cand == NO_CONDITION else _num(s.candidate_since[slot]),
+                         _num(self._last_seen[slot])])
+        return {"schema": TRACKER_SCHEMA, "device": device, "fields": list(_ROW_FIELDS),
+                "rows": rows}
+
+    def load_device(self, snapshot: Mapping[str, Any]) -> int:
+        """Take up one device's saved held state (after a restart); returns how many rows
+        were skipped (unknown condition or quantity codes, damaged rows). ValueError for
+        a snapshot that is not ours or of another schema: nothing is loaded then."""
+        if not isinstance(snapshot, Mapping):
+            raise ValueError("held condition state: expected a mapping")
+        schema = snapshot.get("schema")
+        if schema != TRACKER_SCHEMA:
+            raise ValueError(f"held condition state: schema {schema!r}, this version "
+                             f"reads {TRACKER_SCHEMA}")
+        device = snapshot.get("device")
+        rows = snapshot.get("rows")
+        if not isinstance(device, str) or not device or not isinstance(rows, list):
+            raise ValueError("held condition state: needs a device name and a row list")
+        if snapshot.get("fields", list(_ROW_FIELDS)) != list(_ROW_FIELDS):
+            raise ValueError("held condition state: unexpected row fields")
+        keys: list[RowKey] = []
+        idents: list[str] = []
+        values: list[tuple[int, float, int, float, float]] = []
+        skipped = 0
+        for row in rows:
+            parsed = _parse_row(device, row)
+            if parsed is None:
+                skipped += 1
+                continue
+            key, ident, vals = parsed
+            keys.append(key)
+            idents.append(ident)
+            values.append(vals)
+        if not keys:
+            return skipped
+        idx = self.slots(keys, idents)
+        s = self._state
+        cond, since, cand, cand_since, last = (np.asarray(c) for c in zip(*values, strict=True))
+        s.condition[idx] = cond
+        s.since[idx] = since
+        s.candidate[idx] = cand
+        s.candidate_since[idx] = cand_since
+        self._last_seen[idx] = last
+        self._layouts.pop(device, None)
+        return skipped
+
+
+def _num(x: float) -> float | None:
+    return float(x) if math.isfinite(x) else None
+
+
+def _code(x: object, limit: int) -> int | None:
+    if isinstance(x, int) and not isinstance(x, bool) and 0 <= x < limit:
+        return x
+    return None
+
+
+def _time(x: object) -> float | None:
+    if isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x):
+        return float(x)
+    return None
+
+
+def _parse_row(device: str, row: object
+               ) -> tuple[RowKey, str, tuple[int, float, int, float, float]] | None:
+    """One saved row, or None when it cannot be taken up as it is."""
+    if not isinstance(row, list) or len(row) != len(_ROW_FIELDS):
+        return None
+    port, lane, quantity, ident, cond, since, cand, cand_since, last = row
+    n_cond = len(RANK)  # the condition codes this version knows
+    n_q = max(Quantity) + 1
+    c = _code(cond, n_cond)
+    q = _code(quantity, n_q)
+    t = _time(since)
+    if (not isinstance(port, str) or not isinstance(ident, str) or c is None or q is None
+            or t is None or _code(lane, 1 << 31) is None):
+        return None
+    if q not in set(Quantity):
+        return None
+    if cand is None:
+        cd, cs = NO_CONDITION, math.nan
+    else:
+        code, cst = _code(cand, n_cond), _time(cand_since)
+        if code is None or cst is None:
+            return None
+        cd, cs = code, cst
+    seen = _time(last)
+    return ((device, port, int(lane), q), ident,
+            (c, t, cd, cs, seen if seen is not None else t))

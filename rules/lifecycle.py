@@ -408,6 +408,32 @@ class AlertLifecycle:
             events.append(event)
         return events
 
+    def retire(self, device: str, now: float) -> list[AlertEvent]:
+        """Call when ``device`` was taken out of the config: every open alert of it is
+        resolved ("no longer reported by"), pending ones are dropped."""
+        events: list[AlertEvent] = []
+        for key in list(self.state.keys_for(device)):
+            track = self.state.tracks[key]
+            last = track.last
+            if track.phase != PENDING and last is not None:
+                # the reading lifecycle's own events always name a quantity and condition
+                assert last.quantity is not None and last.condition is not None
+                events.append(replace(
+                    last,
+                    kind=AlertKind.RESOLVE,
+                    sequence=self.state.next_sequence(key),
+                    value=None,
+                    margin_db=None,
+                    summary=resolved_summary(last.quantity, last.port, last.lane, None,
+                                             last.condition, gone_from=device),
+                    advice="",
+                    caution="",
+                    ends_at=now,
+                    at=now,
+                ))
+            self.state.drop(key)
+        return events
+
     # --- transitions -----------------------------------------------------------------
 
     def _bad(

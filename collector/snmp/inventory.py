@@ -153,7 +153,7 @@ def _if_index_of(alias_oid: object) -> int | None:
         text = alias_oid.lstrip(".")
         if text.startswith(IF_INDEX_PREFIX):
             rest = text[len(IF_INDEX_PREFIX):]
-            if rest.isdigit():
+            if rest.isascii() and rest.isdigit():
                 return int(rest)
     return None
 

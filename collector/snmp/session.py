@@ -8,8 +8,10 @@ message names the agent and what was being read, and never a secret.
 from __future__ import annotations
 
 import asyncio
-from collections.abc import Sequence
-from typing import Protocol
+import functools
+import socket
+from collections.abc import Awaitable, Callable, Sequence
+from typing import Any, Protocol
 
 from pyasn1.type import univ
 from pysnmp.hlapi.v3arch.asyncio import (
@@ -46,8 +48,15 @@ _AUTH_ERRORS = (
     errind.NotInTimeWindow,
 )
 
+#: Answers after which a v3 agent may have restarted (new engine boots and time, or a new
+#: engine ID): what we learned of it is forgotten and the request sent once more at once.
+_RESYNC = (errind.RequestTimedOut, errind.NotInTimeWindow, errind.UnknownEngineID)
+
 #: Hard ceiling on GETBULK round trips per walk, so a misbehaving agent cannot loop us.
 MAX_WALK_REQUESTS = 10_000
+
+
+_Answer = tuple[Any, Any, Any, Any]  # (errorIndication, errorStatus, errorIndex, varBinds)
 
 
 class _ErrorStatus(Protocol):
@@ -132,6 +141,49 @@ class EnginePool:
         self._limits.clear()
 
 
+def forget_peer(engine: SnmpEngine, address: tuple[str, int]) -> bool:
+    """Drop what ``engine`` learned of the SNMPv3 agent at ``address``: its engine ID
+    (RFC 3412 discovery cache) and its boots and time (RFC 3414 timeline), so the next
+    request discovers them afresh. True when there was something to forget.
+
+    pysnmp keeps both caches private and expires them only after minutes of silence; an
+    agent that restarted meanwhile drops or refuses our requests (boots and time outside
+    its window) until then. The attribute names are pysnmp 7's; a pysnmp without them
+    leaves this a no-op (recovery then waits for pysnmp's own expiry).
+    """
+    mp = engine.message_processing_subsystems.get(3)
+    usm = engine.security_models.get(3)
+    cache = getattr(mp, "_SnmpV3MessageProcessingModel__engineIdCache", None)
+    timeline = getattr(usm, "_SnmpUSMSecurityModel__timeline", None)
+    if not isinstance(cache, dict):
+        return False
+    forgot = False
+    for key in [k for k in cache if tuple(k[1])[:2] == tuple(address)[:2]]:
+        engine_id = cache.pop(key).get("securityEngineId")
+        if isinstance(timeline, dict) and engine_id is not None:
+            timeline.pop(engine_id, None)
+        forgot = True
+    return forgot
+
+
+def reach_problem(host: str, exc: BaseException) -> str:
+    """Plain words for why a transport to ``host`` could not be made: pysnmp wraps name
+    resolution failures in its own error, whose type name says nothing to an operator."""
+    seen: BaseException | None = exc
+    while seen is not None:
+        if isinstance(seen, socket.gaierror):
+            return f"host name {host!r} not found ({seen.strerror or 'name resolution failed'})"
+        if isinstance(seen, OSError) and seen.strerror:
+            return seen.strerror
+        seen = seen.__cause__ or seen.__context__
+    text = str(exc)
+    for marker in ("Name or service not known", "nodename nor servname",
+                   "No address associated", "Temporary failure in name resolution"):
+        if marker in text:
+            return f"host name {host!r} not found ({marker})"
+    return f"{type(exc).__name__}: the address cannot be used"
+
+
 class SnmpSession:
     """One agent reached with one set of credentials."""
 
@@ -172,11 +224,22 @@ class SnmpSession:
                     (self.host, self.port), timeout=self.timeout, retries=self.retries
                 )
             except Exception as exc:  # resolution or socket errors, named below
-                raise SnmpError(
-                    PollErrorKind.TRANSPORT,
-                    f"cannot reach {self.where} for {what}: {type(exc).__name__}",
-                ) from None
+                raise SnmpError(PollErrorKind.TRANSPORT,
+                                f"cannot reach {self.where} for {what}: "
+                                f"{reach_problem(self.host, exc)}") from None
         return self._target
+
+    async def _resynced(self, send: Callable[[], Awaitable[_Answer]],
+                        target: UdpTransportTarget) -> _Answer:
+        """Send; if a v3 agent we knew did not answer as it should (it may have
+        restarted), forget its engine ID, boots and time and send once more at once, so
+        the device is back on this poll. Once per outage: after the forgetting there is
+        nothing known to forget, and a dead agent costs one extra timeout only."""
+        answer = await send()
+        if (self.credentials.version == "3" and isinstance(answer[0], _RESYNC)
+                and forget_peer(self.engine, target.transport_address)):
+            answer = await send()
+        return answer
 
     def _fail(self, indication: errind.ErrorIndication, what: str) -> SnmpError:
         if isinstance(indication, errind.RequestTimedOut):
@@ -184,7 +247,8 @@ class SnmpSession:
             return SnmpError(
                 PollErrorKind.TIMEOUT,
                 f"no answer from {self.where} while reading {what}: "
-                f"{self.retries + 1} tries of {self.timeout:g} s"
+                f"{self.retries + 1} {'try' if self.retries == 0 else 'tries'} of "
+                f"{self.timeout:g} s"
                 + (hint if self.credentials.version == "2c" else ""),
             )
         if isinstance(indication, _AUTH_ERRORS):
@@ -204,14 +268,14 @@ class SnmpSession:
         """GET the given instances; absent ones map to None. ``octets``: see :func:`plain`."""
         target = await self._get_target(what)
         async with self._limit:
-            indication, status, index, varbinds = await get_cmd(
+            indication, status, index, varbinds = await self._resynced(lambda: get_cmd(
                 self.engine,
                 self._auth,
                 target,
                 self._context,
                 *(ObjectType(ObjectIdentity(oid)) for oid in oids),
                 lookupMib=False,
-            )
+            ), target)
         self._check(indication, status, what, f" at varbind {int(index)}")
         self.varbinds += len(varbinds)
         result: dict[str, object] = {oid: None for oid in oids}
@@ -250,17 +314,11 @@ class SnmpSession:
         for _ in range(MAX_WALK_REQUESTS):
             if not active:
                 return results
+            names = [ObjectType(ObjectIdentity(".".join(map(str, last[c])))) for c in active]
             async with self._limit:
-                indication, status, _, varbinds = await bulk_cmd(
-                    self.engine,
-                    self._auth,
-                    target,
-                    self._context,
-                    0,
-                    self.max_repetitions,
-                    *(ObjectType(ObjectIdentity(".".join(map(str, last[c])))) for c in active),
-                    lookupMib=False,
-                )
+                indication, status, _, varbinds = await self._resynced(functools.partial(
+                    bulk_cmd, self.engine, self._auth, target, self._context, 0,
+                    self.max_repetitions, *names, lookupMib=False), target)
             self._check(indication, status, what)
             self.varbinds += len(varbinds)
             if not varbinds:

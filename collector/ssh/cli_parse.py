@@ -19,6 +19,7 @@ from pathlib import Path
 import textfsm
 
 from lightwarden.collector.readings import (
+    MAX_LANE,
     MODULE_QUANTITIES,
     BatchBuilder,
     OpticIdentity,
@@ -26,6 +27,7 @@ from lightwarden.collector.readings import (
     ReadingBatch,
     ReadingStatus,
     Thresholds,
+    is_ascii_number,
 )
 from lightwarden.collector.ssh.platforms.platform import (
     QUANTITY_KEYS,
@@ -131,8 +133,11 @@ def read_cell(text: str, quantity: Quantity, unit: str, platform: Platform) -> C
     if unit not in UNITS_FOR[quantity]:
         return Cell(None, ReadingStatus.INVALID, f"{quantity.label}: unknown unit {unit!r}")
     try:
-        number = float(shown)
+        # float() also reads other scripts' digits; a device prints ASCII.
+        number = float(shown) if shown.isascii() else math.nan
     except ValueError:
+        number = math.nan
+    if math.isnan(number) and shown.lower() not in ("nan", "+nan", "-nan"):
         return Cell(None, ReadingStatus.INVALID, f"{quantity.label}: unreadable value {shown!r}")
     if math.isnan(number):
         return Cell(None, ReadingStatus.INVALID, f"{quantity.label}: value is not a number")
@@ -248,7 +253,7 @@ def _first_token_port_lane(line: str, has_lane: bool) -> tuple[str, int] | None:
         return None
     if not has_lane:
         return tokens[0], 1
-    if len(tokens) >= 2 and tokens[1].isdigit():
+    if len(tokens) >= 2 and is_ascii_number(tokens[1]) and 1 <= int(tokens[1]) <= MAX_LANE:
         return tokens[0], int(tokens[1])
     return None
 
@@ -289,8 +294,9 @@ def parse_outputs(
             if not port:
                 continue  # a record holding only carried-down header values
             lane_text = row.get(cols.lane, "1") if cols.lane else "1"
-            if not lane_text.isdigit() or int(lane_text) < 1:
-                problems.append(f"{tdef.command!r}: {port} has a bad lane number {lane_text!r}")
+            if not is_ascii_number(lane_text) or not 1 <= int(lane_text) <= MAX_LANE:
+                problems.append(f"{tdef.command!r}: {port} has a bad lane number {lane_text!r}"
+                                f" (1..{MAX_LANE})")
                 continue
             ports.setdefault(port, _PortRows()).rows.append((int(lane_text), row, tdef))
         for lineno, line in table.unmatched:

@@ -87,14 +87,24 @@ def from_config(device: SshDevice, credential: SshLogin, ctx: BuildContext,
                              lambda w: w.shutdown(wait=False))
     known = device.known_hosts or s.known_hosts
     if known is not None and not Path(known).is_absolute():
-        known = str(ctx.base_dir / known)
+        # known_hosts is trust state (what ssh keeps in ~/.ssh), so it lives with the
+        # rest of our state, not beside a config that may be read-only.
+        known = str((ctx.state_dir or ctx.base_dir) / known)
+    if known is not None and s.strict_host_keys and not Path(known).expanduser().is_file():
+        # Caught before polling: every poll would fail on it (host keys are never
+        # accepted blindly).
+        raise ConfigError(f"known_hosts file {known} not found (ssh.known_hosts; relative "
+                          "paths are in the state directory)")
     timeout = device.timeout_s or ctx.timeout_s
     return SshSource(
         device.name, device.host, _platform(device.platform, ctx),
         SshCredentials(
             credential.username,
             password=credential.password.read(ctx.base_dir) if credential.password else "",
-            key_file=credential.key_file,
+            # a key file is a secret: relative paths resolve like the other secret files
+            key_file=(str(ctx.base_dir / credential.key_file)
+                      if credential.key_file and not Path(credential.key_file).is_absolute()
+                      else credential.key_file),
             key_passphrase=(credential.passphrase.read(ctx.base_dir)
                             if credential.passphrase else ""),
         ),

@@ -268,7 +268,16 @@ class SshSource:
                     error=f"{self.name}: unexpected {type(exc).__name__} while polling over SSH",
                     error_kind=PollErrorKind.INTERNAL,
                 )
-        result = parse_outputs(self.name, self.platform, outputs, now)
+        try:
+            result = parse_outputs(self.name, self.platform, outputs, now)
+        except Exception as exc:
+            # A parser bug must cost this poll only, named, never the process or a
+            # traceback (parse errors proper are per row, in result.problems).
+            return PollOutcome(
+                self.name, now, time.monotonic() - started,
+                error=f"{self.name}: output could not be parsed ({type(exc).__name__})",
+                error_kind=PollErrorKind.PARSE,
+            )
         if self.read_maps and result.batch is not None:
             await self._apply_maps(result.batch)
         outcome = PollOutcome(self.name, now, time.monotonic() - started, batch=result.batch)
@@ -400,10 +409,12 @@ class SshSource:
                               alt_key_file=str(self.known_hosts))
         if creds.key_file:
             try:
+                # paramiko's OpenSSH-format key loader takes the passphrase as bytes
+                # (a str fails deep inside with a TypeError).
+                passphrase = creds.key_passphrase.encode("utf-8") or None
                 kwargs["pkey"] = paramiko.PKey.from_path(
-                    creds.key_file, creds.key_passphrase or None
-                )
-            except (OSError, paramiko.SSHException, ValueError) as exc:
+                    creds.key_file, passphrase)  # type: ignore[arg-type]  # typed str, needs bytes
+            except (OSError, paramiko.SSHException, ValueError, TypeError) as exc:
                 reason = (
                     "needs a passphrase or the passphrase is wrong"
                     if isinstance(exc, paramiko.PasswordRequiredException | paramiko.SSHException)

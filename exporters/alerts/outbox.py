@@ -19,7 +19,7 @@ import json
 import sqlite3
 import threading
 import time
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from types import TracebackType
@@ -274,15 +274,32 @@ class Outbox:
 
     def save_state(self, name: str, state: dict[str, Any]) -> None:
         """Replace the snapshot called ``name`` (must be JSON-serialisable)."""
-        try:
-            body = json.dumps(state, allow_nan=False, sort_keys=True)
-        except (TypeError, ValueError) as exc:
-            raise ValueError(f"state snapshot {name!r} is not JSON-serialisable: {exc}") from None
+        self.save_states({name: state})
+
+    def save_states(self, states: Mapping[str, dict[str, Any]]) -> None:
+        """Replace several snapshots in one transaction: all are saved or none is, so
+        snapshots that belong together (alert lifecycle, held conditions) never part."""
+        bodies = []
+        for name, state in states.items():
+            try:
+                bodies.append((name, json.dumps(state, allow_nan=False, sort_keys=True)))
+            except (TypeError, ValueError) as exc:
+                raise ValueError(
+                    f"state snapshot {name!r} is not JSON-serialisable: {exc}") from None
+        if not bodies:
+            return
+        now = self._clock()
         with self._lock, self._tx():
-            self._db.execute(
+            self._db.executemany(
                 "INSERT OR REPLACE INTO state (name, body, saved_at) VALUES (?, ?, ?)",
-                (name, body, self._clock()),
+                [(name, body, now) for name, body in bodies],
             )
+
+    def state_names(self, prefix: str) -> list[str]:
+        """Names of the saved snapshots starting with ``prefix``."""
+        with self._lock:
+            rows = self._db.execute("SELECT name FROM state ORDER BY name").fetchall()
+        return [r[0] for r in rows if str(r[0]).startswith(prefix)]
 
     def load_state(self, name: str) -> dict[str, Any] | None:
         """The last snapshot saved under ``name``, or None if there is none."""

@@ -1,7 +1,9 @@
-"""Alert delivery for a running monitor: outbox, dispatcher and persisted lifecycle.
+"""Alert delivery for a running monitor: outbox, dispatcher and persisted held state.
 
-The lifecycle's state is saved in the outbox file after every batch of events, so a
-restarted monitor neither re-opens alerts it already sent nor forgets open ones; the
+The lifecycle's state and the condition tracker's held state (hysteresis, holds) are
+saved together, in one outbox transaction, after every poll that changed either; so a
+restarted or crashed monitor neither re-opens alerts it already sent nor forgets open
+ones, and a reading held inside its hysteresis band is not resolved by the restart. The
 outbox's unique (key, sequence, destination) rows make a replay after a crash harmless.
 """
 
@@ -14,7 +16,9 @@ from lightwarden.exporters.alerts.delivery import Dispatcher
 from lightwarden.exporters.alerts.http import AlertDestination
 from lightwarden.exporters.alerts.outbox import Outbox, OutboxError
 from lightwarden.exporters.app.config import ConfigError, SiteConfig
+from lightwarden.exporters.app.statedir import ensure_state_dir, state_path
 from lightwarden.rules.findings import AlertEvent
+from lightwarden.rules.hysteresis import ConditionTracker
 from lightwarden.rules.lifecycle import AlertLifecycle
 from lightwarden.rules.link_alerts import LinkAlerts
 
@@ -22,31 +26,58 @@ log = logging.getLogger("lightwarden.alerting")
 
 LIFECYCLE_STATE = "lifecycle"
 LINK_ALERTS_STATE = "link-alerts"
+#: one snapshot per device: "held/<device>" (a poll changes one device's rows only)
+HELD_STATE = "held/"
 
 
 class AlertRunner:
-    """Hands each poll's events to delivery and saves the lifecycle beside them."""
+    """Hands each poll's events to delivery and saves the lifecycle and the held
+    conditions beside them."""
 
     def __init__(self, lifecycle: AlertLifecycle, outbox: Outbox, dispatcher: Dispatcher,
-                 links: LinkAlerts | None = None) -> None:
+                 links: LinkAlerts | None = None,
+                 tracker: ConditionTracker | None = None) -> None:
         self.lifecycle = lifecycle
         self.outbox = outbox
         self.dispatcher = dispatcher
         self.links = links
-
-    def _save(self) -> None:
-        self.outbox.save_state(LIFECYCLE_STATE, self.lifecycle.snapshot())
-        if self.links is not None:
-            self.outbox.save_state(LINK_ALERTS_STATE, self.links.to_dict())
+        self.tracker = tracker
 
     def submit(self, events: list[AlertEvent]) -> None:
-        self.dispatcher.submit(events)
-        self._save()
+        if events:
+            self.dispatcher.submit(events)
+        self.save(everything=False)
+
+    def save(self, everything: bool = True) -> None:
+        """The lifecycle, link alerts and the held state of changed (or all) devices, in
+        one transaction."""
+        states = {LIFECYCLE_STATE: self.lifecycle.snapshot()}
+        if self.links is not None:
+            states[LINK_ALERTS_STATE] = self.links.to_dict()
+        if self.tracker is not None:
+            held = (self.tracker.snapshot_devices() if everything
+                    else self.tracker.snapshot_devices(dirty=True))
+            states.update({HELD_STATE + d: body for d, body in held.items()})
+        self.outbox.save_states(states)
 
     def stop(self, drain_timeout: float = 5.0) -> None:
         self.dispatcher.stop(drain_timeout)
-        self._save()
+        self.save()
         self.outbox.close()
+
+
+def restore_held(tracker: ConditionTracker, outbox: Outbox) -> None:
+    """Take up each device's saved held conditions; a damaged one starts afresh."""
+    for name in outbox.state_names(HELD_STATE):
+        try:
+            body = outbox.load_state(name)
+            skipped = tracker.load_device(body) if body is not None else 0
+        except (OutboxError, ValueError) as exc:
+            log.warning("held conditions %s in %s not restored: %s", name, outbox.path, exc)
+            continue
+        if skipped:
+            log.warning("held conditions %s: %d rows not restored (unknown codes or "
+                        "damaged); they start afresh", name, skipped)
 
 
 def destinations(cfg: SiteConfig, base_dir: Path) -> list[AlertDestination]:
@@ -67,16 +98,22 @@ def destinations(cfg: SiteConfig, base_dir: Path) -> list[AlertDestination]:
     return out
 
 
+def outbox_path(cfg: SiteConfig, state_dir: Path) -> Path:
+    return state_path(state_dir, cfg.alerting.outbox_path)
+
+
 def start_alerting(lifecycle: AlertLifecycle, cfg: SiteConfig,
-                   base_dir: Path, links: LinkAlerts | None = None) -> AlertRunner | None:
+                   base_dir: Path, state_dir: Path, links: LinkAlerts | None = None,
+                   tracker: ConditionTracker | None = None) -> AlertRunner | None:
     """Restore the lifecycle's saved state and start delivery; None when no destination
-    is configured."""
+    is configured. Secrets resolve against ``base_dir``, the outbox against
+    ``state_dir``."""
     dests = destinations(cfg, base_dir)
     if not dests:
         return None
-    path = Path(cfg.alerting.outbox_path)
-    if not path.is_absolute():
-        path = base_dir / path
+    path = outbox_path(cfg, state_dir)
+    if path.is_relative_to(state_dir):
+        ensure_state_dir(state_dir)
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
         outbox = Outbox(path)
@@ -95,10 +132,12 @@ def start_alerting(lifecycle: AlertLifecycle, cfg: SiteConfig,
             links.load(saved_links)
         except ValueError as exc:
             log.warning("link alert state in %s not restored: %s", path, exc)
+    if tracker is not None:
+        restore_held(tracker, outbox)
     try:
         dispatcher = Dispatcher(outbox, dests, resend_interval_s=cfg.alerting.resend_interval_s)
     except ValueError as exc:
         raise ConfigError(f"alerting: {exc}") from None
-    runner = AlertRunner(lifecycle, outbox, dispatcher, links)
+    runner = AlertRunner(lifecycle, outbox, dispatcher, links, tracker)
     dispatcher.start()
     return runner

@@ -9,10 +9,12 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import contextlib
 import json
 import logging
 import os
 import sys
+import tempfile
 import time
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -56,6 +58,14 @@ def _load(path: str) -> tuple[SiteConfig, Path]:
     return cfg, Path(path).resolve().parent
 
 
+def _state_dir(args: argparse.Namespace, cfg: SiteConfig | None, base: Path) -> Path:
+    """The state directory (exporters/app/statedir.py); not created here."""
+    from lightwarden.exporters.app.statedir import resolve_state_dir
+
+    return resolve_state_dir(getattr(args, "state_dir", None),
+                             cfg.state_dir if cfg is not None else None, config_dir=base)
+
+
 # -- check --------------------------------------------------------------------------------
 
 
@@ -73,6 +83,10 @@ def run_check(monitor: Monitor, as_json: bool) -> int:
             rows.extend(optic_rows(v.assessment, monitor.targets, v.contexts, v.links))
     worst_first(rows, monitor.targets)
     links = monitor.link_issues()
+    for v in views:
+        if v.outcome.health == "partial":
+            print(f"warning: {v.outcome.device}: partial poll: {v.outcome.reason}",
+                  file=sys.stderr)
     if as_json:
         from lightwarden.exporters.pages.status import finding_json
 
@@ -154,7 +168,7 @@ def cmd_bench_poll(args: argparse.Namespace) -> int:
 
 
 def cmd_check(args: argparse.Namespace) -> int:
-    from lightwarden.exporters.app.wiring import build_monitor
+    from lightwarden.exporters.app.wiring import preflight
 
     if args.walk:
         return _check_walk(args)
@@ -166,8 +180,8 @@ def cmd_check(args: argparse.Namespace) -> int:
         cfg, base = _adhoc_config(args), Path.cwd()
     else:
         raise UsageError("give -c SITE.yaml or HOST[:PORT]")
-    monitor = build_monitor(cfg, base_dir=base, alerts=False)
-    monitor.build_sources()
+    monitor = preflight(cfg, base_dir=base, state_dir=_state_dir(args, cfg, base),
+                        alerts=False)
     return run_check(monitor, args.json)
 
 
@@ -202,13 +216,22 @@ def _check_walk(args: argparse.Namespace) -> int:
 
 
 def cmd_validate(args: argparse.Namespace) -> int:
-    from lightwarden.exporters.app.wiring import build_catalogue, build_overrides
+    from lightwarden.exporters.app.wiring import my_devices, preflight
 
-    cfg, _base = _load(args.config)
-    build_catalogue(cfg)
-    build_overrides(cfg)
-    print(f"{args.config}: ok ({len(cfg.devices)} devices, {len(cfg.overrides)} overrides)")
+    cfg, base = _load(args.config)
+    # Exactly what `run` checks before it polls (`check` the same, without alerting).
+    preflight(cfg, base_dir=base, state_dir=_state_dir(args, cfg, base)).close()
+    mine = len(my_devices(cfg))
+    shard = (f", {mine} in shard {cfg.shard.index} of {cfg.shard.count}"
+             if cfg.shard.count > 1 else "")
+    print(f"{args.config}: ok ({_n(len(cfg.devices), 'device')}{shard}, "
+          f"{_n(len(cfg.overrides), 'override')}, {_n(len(cfg.plant), 'span')})")
     return EXIT_OK
+
+
+def _n(count: int, word: str) -> str:
+    """'1 device', '2 devices'."""
+    return f"{count} {word if count == 1 else word + 's'}"
 
 
 # -- run / demo ---------------------------------------------------------------------------
@@ -216,26 +239,43 @@ def cmd_validate(args: argparse.Namespace) -> int:
 
 def cmd_run(args: argparse.Namespace) -> int:
     from lightwarden.exporters.app.runtime import Service
-    from lightwarden.exporters.app.wiring import as_instance, build_monitor
+    from lightwarden.exporters.app.wiring import as_instance, preflight
 
     cfg, base = _load(args.config)
-    if args.shard_index is not None:
-        cfg = as_instance(cfg, args.shard_index, args.listen_port)
-    elif args.listen_port is not None:
-        cfg = cfg.model_copy(update={"listen": cfg.listen.model_copy(
-            update={"port": args.listen_port})})  # fmt: skip
-    monitor = build_monitor(cfg, base_dir=base)
-    monitor.build_sources()
+
+    def instance(c: SiteConfig) -> SiteConfig:
+        # The command line's shard and port win over the file's, at start and on reload.
+        if args.shard_index is not None:
+            return as_instance(c, args.shard_index, args.listen_port)
+        if args.listen_port is not None:
+            return c.model_copy(update={"listen": c.listen.model_copy(
+                update={"port": args.listen_port})})  # fmt: skip
+        return c
+
+    cfg = instance(cfg)
+    monitor = preflight(cfg, base_dir=base, state_dir=_state_dir(args, cfg, base))
+    # The listening socket first: a start that fails (port in use) leaves no files.
+    service = Service(monitor, cfg, base, config_path=args.config, transform=instance)
     monitor.open_history()
-    service = Service(monitor, cfg, base)
     shard = f" (shard {cfg.shard.index} of {cfg.shard.count})" if cfg.shard.count > 1 else ""
-    print(f"lightwarden: {len(monitor.sources)} of {len(cfg.devices)} devices{shard}; "
+    print(f"lightwarden: {_n(len(monitor.sources), 'device')} of {len(cfg.devices)}{shard}; "
           f"metrics at {service.url}/metrics", flush=True)
     service.serve()
     return EXIT_OK
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
+    with contextlib.ExitStack() as scope:
+        if args.state_dir:
+            state = Path(args.state_dir).expanduser().resolve()
+        else:
+            # Nothing of a demo is worth keeping: its state goes with it.
+            state = Path(scope.enter_context(
+                tempfile.TemporaryDirectory(prefix="lightwarden-demo-")))
+        return _demo(args, state)
+
+
+def _demo(args: argparse.Namespace, state: Path) -> int:
     import yaml
 
     from lightwarden.exporters.app.config import parse_config
@@ -246,22 +286,22 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
     os.environ.update(LAB_ENV)
     # Each demo starts afresh: a new lab has no past alerts or readings of its own.
-    state = Path(args.state_dir)
     for name in ("outbox.sqlite", "history.sqlite"):
         for suffix in ("", "-wal", "-shm"):
             (state / (name + suffix)).unlink(missing_ok=True)
+    print(f"lightwarden demo: starting the Quillmoor lab (state in {state}) ...", flush=True)
     lab = LabServers(speed=args.speed, base_port=0)
     endpoints = _start_lab(lab)
     try:
         data = lab_site_config(endpoints, interval_s=args.interval, lab=lab.lab)
-        data["history"] = {"path": str(Path(args.state_dir) / "history.sqlite"),
-                           "sample_every_s": args.interval}
+        data["state_dir"] = str(state)
+        data["history"] = {"path": "history.sqlite", "sample_every_s": args.interval}
         data["listen"] = {"host": "127.0.0.1", "port": args.port}
         # Short holds so the scripted stories show within minutes of wall time.
         data["conditions"] = {"hold_s": args.hold, "clear_hold_s": 2 * args.hold,
                               "hysteresis_db": 0.5}
         alerting: dict[str, Any] = {"resolve_hold_s": 0.0,
-                                    "outbox_path": str(Path(args.state_dir) / "outbox.sqlite"),
+                                    "outbox_path": "outbox.sqlite",
                                     "labels": {"site": "quillmoor"}}
         if args.alertmanager:
             alerting["alertmanager"] = [{"url": args.alertmanager}]
@@ -269,15 +309,17 @@ def cmd_demo(args: argparse.Namespace) -> int:
             alerting["webhooks"] = [{"url": args.webhook}]
         data["alerting"] = alerting
         cfg = parse_config(yaml.safe_dump(data), "(demo)")
-        monitor = build_monitor(cfg, base_dir=Path.cwd())
+        monitor = build_monitor(cfg, base_dir=state, state_dir=state)
         monitor.build_sources()
         history = monitor.open_history()
         if history is not None and args.backfill_days > 0:
             from lightwarden.fixtures.lab.backfill import backfill
 
+            print(f"  writing {args.backfill_days:g} days of lab history for the report ...",
+                  flush=True)
             backfill(lab.lab, lambda b: history.record(b, force=True), lab.clock.now(),
                      time.time(), days=args.backfill_days)
-        service = Service(monitor, cfg, Path.cwd())
+        service = Service(monitor, cfg, state)
         n_optics = len(lab.lab.optic_ports())
         print(f"lightwarden demo: Quillmoor lab, {len(lab.lab.devices)} switches, "
               f"{n_optics} optics, lab clock x{args.speed:g}", flush=True)
@@ -307,10 +349,15 @@ def _start_lab(lab: Any) -> Any:
 
 def cmd_lab(args: argparse.Namespace) -> int:
     from lightwarden.exporters.app.runtime import Stop
+    from lightwarden.exporters.app.statedir import ensure_state_dir
     from lightwarden.fixtures.lab.server import LabServers
 
-    known = Path(args.known_hosts)
-    known.parent.mkdir(parents=True, exist_ok=True)
+    if args.known_hosts:
+        known = Path(args.known_hosts).expanduser()
+        known.parent.mkdir(parents=True, exist_ok=True)
+    else:
+        # Into the state directory, where a site config's relative known_hosts points.
+        known = ensure_state_dir(_state_dir(args, None, Path.cwd())) / "lab_known_hosts"
     lab = LabServers(speed=args.speed, base_port=args.port, known_hosts_path=known)
     endpoints = _start_lab(lab)
     print(f"lightwarden lab: {len(endpoints.snmp)} switches, lab clock x{args.speed:g}",
@@ -332,14 +379,13 @@ def cmd_lab(args: argparse.Namespace) -> int:
 
 
 def cmd_report(args: argparse.Namespace) -> int:
-    from lightwarden.exporters.app.wiring import build_monitor
+    from lightwarden.exporters.app.wiring import build_monitor, history_path
     from lightwarden.exporters.pages.report import build_report, render_report, report_json
 
     cfg, base = _load(args.config)
-    monitor = build_monitor(cfg, base_dir=base, alerts=False)
-    path = Path(cfg.history.path)
-    if not path.is_absolute():
-        path = base / path
+    state = _state_dir(args, cfg, base)
+    monitor = build_monitor(cfg, base_dir=base, state_dir=state, alerts=False)
+    path = history_path(cfg, state)
     if not path.exists():
         raise ConfigError(f"history.path {path}: no history yet (run `lightwarden run` first)")
     history = monitor.open_history()
@@ -392,23 +438,63 @@ def _target_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--community-env", metavar="VAR", help="read the community from VAR")
     p.add_argument("--v3-user", metavar="USER", help="SNMPv3 user (authPriv)")
     p.add_argument("--auth-protocol", default="SHA-256",
-                   choices=["SHA", "SHA-224", "SHA-256", "SHA-384", "SHA-512"])
-    p.add_argument("--priv-protocol", default="AES-128", choices=["AES-128", "AES-192", "AES-256"])
-    p.add_argument("--auth-key-env", default="LIGHTWARDEN_SNMP_AUTH_KEY", metavar="VAR")
-    p.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR")
+                   choices=["SHA", "SHA-224", "SHA-256", "SHA-384", "SHA-512"],
+                   help="SNMPv3 authentication protocol (default SHA-256)")
+    p.add_argument("--priv-protocol", default="AES-128", choices=["AES-128", "AES-192", "AES-256"],
+                   help="SNMPv3 privacy protocol (default AES-128)")
+    p.add_argument("--auth-key-env", default="LIGHTWARDEN_SNMP_AUTH_KEY", metavar="VAR",
+                   help="read the SNMPv3 authentication key from VAR "
+                        "(default LIGHTWARDEN_SNMP_AUTH_KEY)")
+    p.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR",
+                   help="read the SNMPv3 privacy key from VAR (default LIGHTWARDEN_SNMP_PRIV_KEY)")
     p.add_argument("--eeprom-oid", metavar="OID",
                    help="also read each module's memory map from this column (OID of a "
                         "table indexed by ifIndex), as a configured device's eeprom_oid does")
     p.add_argument("--timeout", type=float, default=2.0, help="seconds per SNMP request")
-    p.add_argument("--retries", type=int, default=1)
+    p.add_argument("--retries", type=int, default=1,
+                   help="SNMP retries after the first try (default 1)")
+
+
+_CONFIG_HELP = "the site config (YAML; deploy/site.example.yaml is an annotated example)"
+
+#: environment variables lightwarden itself reads (README "Environment")
+ENVIRONMENT = {
+    "STATE_DIRECTORY": "the state directory, when neither --state-dir nor state_dir is set "
+                       "(systemd's StateDirectory= sets it)",
+    "XDG_STATE_HOME": "the per-user state base (default ~/.local/state)",
+    "LIGHTWARDEN_SNMP_AUTH_KEY": "`check HOST --v3-user`: the SNMPv3 authentication key "
+                                 "(another variable with --auth-key-env)",
+    "LIGHTWARDEN_SNMP_PRIV_KEY": "`check HOST --v3-user`: the SNMPv3 privacy key "
+                                 "(another variable with --priv-key-env)",
+    "LIGHTWARDEN_DEBUG": "set to 1: show the traceback of an unexpected error",
+}
+
+
+def _version() -> str:
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("lightwarden")
+    except PackageNotFoundError:
+        return "(not installed)"
+
+
+def _state_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--state-dir", metavar="DIR",
+                   help="where history, alert outbox and saved state live (default: the "
+                        "config's state_dir, else $STATE_DIRECTORY, else "
+                        "$XDG_STATE_HOME/lightwarden or ~/.local/state/lightwarden)")
 
 
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="lightwarden",
         description="Optical diagnostics monitor: windows, margins, conditions, alerts.",
+        epilog="environment: " + "; ".join(f"{k}: {v}" for k, v in ENVIRONMENT.items()),
     )
     p.add_argument("-v", "--verbose", action="count", default=0, help="more logging (-vv)")
+    p.add_argument("--version", action="version", version=f"lightwarden {_version()}",
+                   help="print the version and exit")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
 
     d = sub.add_parser("demo", help="run the simulated lab and the monitor in one process")
@@ -422,15 +508,17 @@ def build_parser() -> argparse.ArgumentParser:
                    help="condition hold time, seconds (demo default is short)")
     d.add_argument("--alertmanager", metavar="URL", help="send alerts to this Alertmanager")
     d.add_argument("--webhook", metavar="URL", help="send alert events to this webhook")
-    d.add_argument("--state-dir", default="var/demo",
-                   help="where the demo keeps its outbox and history")
+    d.add_argument("--state-dir", default=None, metavar="DIR",
+                   help="keep the demo's outbox and history here (default: a temporary "
+                        "directory, removed when the demo ends)")
     d.add_argument("--backfill-days", type=float, default=60.0, metavar="DAYS",
                    help="give the demo this many days of lab history first, so the "
                         "planners' report has something to say (0: none)")
     d.set_defaults(func=cmd_demo)
 
     r = sub.add_parser("run", help="the monitor daemon")
-    r.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    r.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help=_CONFIG_HELP)
+    _state_option(r)
     r.add_argument("--shard-index", type=int, metavar="N",
                    help="run as shard instance N of shard.count (overrides shard.index; "
                         "listens on listen.port + N unless --listen-port is given)")
@@ -439,13 +527,14 @@ def build_parser() -> argparse.ArgumentParser:
     r.set_defaults(func=cmd_run)
 
     c = sub.add_parser("check", help="poll every device once and print each optic")
-    c.add_argument("-c", "--config", metavar="SITE.yaml")
+    c.add_argument("-c", "--config", metavar="SITE.yaml", help=_CONFIG_HELP)
     c.add_argument("target", nargs="?", metavar="HOST[:PORT]", help="one SNMP device, ad hoc")
     c.add_argument("--json", action="store_true", help="print a JSON array")
     _target_args(c)
     c.add_argument("--walk", metavar="FILE",
                    help="judge a saved snmpwalk -On / snmpbulkwalk -On capture instead of "
                         "polling (with -c, the site's windows, overrides and plant apply)")
+    _state_option(c)
     c.set_defaults(func=cmd_check)
 
     b = sub.add_parser("bench", help="measure what polling costs this process")
@@ -458,27 +547,33 @@ def build_parser() -> argparse.ArgumentParser:
     bp.set_defaults(func=cmd_bench_poll)
 
     v = sub.add_parser("validate", help="check a site config without polling")
-    v.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    v.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help=_CONFIG_HELP)
+    _state_option(v)
     v.set_defaults(func=cmd_validate)
 
     lab = sub.add_parser("lab", help="serve only the simulated lab (SNMP and SSH)")
     lab.add_argument("--port", type=_port, default=16161,
                      help="first port: device i answers SNMP (UDP) and SSH (TCP) on PORT+i")
     lab.add_argument("--speed", type=float, default=1.0, help="lab clock speed-up")
-    lab.add_argument("--duration", type=float, default=None, metavar="SECONDS")
-    lab.add_argument("--known-hosts", default="var/lab_known_hosts",
-                     help="where to write the lab's SSH host keys")
+    lab.add_argument("--duration", type=float, default=None, metavar="SECONDS",
+                     help="stop after this many seconds (default: until Ctrl-C)")
+    lab.add_argument("--known-hosts", default=None, metavar="FILE",
+                     help="where to write the lab's SSH host keys (default: "
+                          "lab_known_hosts in the state directory)")
+    _state_option(lab)
     lab.set_defaults(func=cmd_lab)
 
     rep = sub.add_parser("report", help="planners' report: ageing links, forecasts, span loss")
-    rep.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    rep.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help=_CONFIG_HELP)
     rep.add_argument("--days", type=float, default=90.0, help="history to fit (default 90)")
-    rep.add_argument("--json", action="store_true")
+    rep.add_argument("--json", action="store_true", help="print JSON instead of text")
+    _state_option(rep)
     rep.set_defaults(func=cmd_report)
 
     dec = sub.add_parser("decode", help="decode a module memory map (binary or hex dump)")
-    dec.add_argument("file", metavar="FILE")
-    dec.add_argument("--json", action="store_true")
+    dec.add_argument("file", metavar="FILE",
+                     help="a memory map: raw bytes, or a hex dump as `optics memory` prints")
+    dec.add_argument("--json", action="store_true", help="print JSON instead of text")
     dec.set_defaults(func=cmd_decode)
 
     from lightwarden.exporters.prometheus.alert_rules import build_parser as rules_parser

@@ -79,12 +79,16 @@ class Poll(_Model):
     max_backoff_s: float = Field(default=900.0, gt=0)
     #: polls running at once across all devices; the rest wait for a slot
     max_in_flight: int = Field(default=64, ge=1, le=10_000)
+    #: after a failed poll the last readings stay in the metrics this long, then are
+    #: withdrawn (the page keeps showing them, marked stale with their age)
+    stale_after_s: float = Field(default=300.0, gt=0)
     ssh_threads: int = Field(default=16, ge=1, le=256)
     ssh_per_device: int = Field(default=1, ge=1, le=8)
 
 
 class Ssh(_Model):
-    known_hosts: str | None = None  # strict host-key checking against this file
+    #: strict host-key checking against this file; relative: in the state directory
+    known_hosts: str | None = None
     strict_host_keys: bool = True
     read_timeout_s: float = Field(default=20.0, gt=0)
 
@@ -198,7 +202,7 @@ class Alerting(_Model):
     open_hold_s: float = Field(default=0.0, ge=0)
     resolve_hold_s: float = Field(default=0.0, ge=0)
     holds: list[AlertHold] = Field(default_factory=list)
-    outbox_path: str = "var/lightwarden-outbox.sqlite"
+    outbox_path: str = "lightwarden-outbox.sqlite"  # relative: in the state directory
     labels: dict[str, str] = Field(default_factory=dict)
     generator_url: str | None = None
 
@@ -222,7 +226,7 @@ class Listen(_Model):
 
 
 class History(_Model):
-    path: str = "var/lightwarden-history.sqlite"
+    path: str = "lightwarden-history.sqlite"  # relative: in the state directory
     keep_days: float = Field(default=400.0, gt=0)
     #: keep at most one sample per device this often (trends need hours, not seconds)
     sample_every_s: float = Field(default=900.0, gt=0)
@@ -231,6 +235,9 @@ class History(_Model):
 
 class SiteConfig(_Model):
     site: str = "site"
+    #: where everything we write lives (exporters/app/statedir.py); relative: from this
+    #: file's folder. Unset: $STATE_DIRECTORY, else the XDG per-user default.
+    state_dir: str | None = None
     listen: Listen = Listen()
     shard: Shard = Shard()
     poll: Poll = Poll()
@@ -266,17 +273,28 @@ def reference_problems(cfg: SiteConfig) -> list[tuple[tuple[Any, ...], str]]:
         elif cred.given()[0] not in credential_kinds(d.protocol):
             problems.append((where, f"device uses {d.protocol} but {d.credentials!r} is "
                                     f"{cred.given()[0]}"))
+    # One problem per root cause: a device missing (renamed, mistyped) is reported once,
+    # at its first reference, with how many more there are, not once per plant end.
+    unknown: dict[str, list[tuple[Any, ...]]] = {}
     for i, o in enumerate(cfg.overrides):
         if o.port is not None and o.port.split()[0] not in seen:
-            problems.append((("overrides", i, "port"), f"no device named {o.port.split()[0]!r}"))
+            unknown.setdefault(o.port.split()[0], []).append(("overrides", i, "port"))
     for i, sp in enumerate(cfg.plant):
         for end in ("a", "b"):
             ref = getattr(sp, end)
-            if len(ref.split()) != 2 or ref.split()[0] not in seen:
-                problems.append(
-                    (("plant", i, end), f"{ref!r} is not \"DEVICE PORT\" of a known device")
-                )
+            if len(ref.split()) != 2:
+                problems.append((("plant", i, end), f"{ref!r} is not \"DEVICE PORT\""))
+            elif ref.split()[0] not in seen:
+                unknown.setdefault(ref.split()[0], []).append(("plant", i, end))
+    for name, refs in unknown.items():
+        more = f" (and {len(refs) - 1} more {_plural(len(refs) - 1, 'reference')})" \
+            if len(refs) > 1 else ""
+        problems.append((refs[0], f"no device named {name!r}{more}"))
     return problems
+
+
+def _plural(n: int, word: str) -> str:
+    return word if n == 1 else word + "s"
 
 
 # -- loading with file:line:key errors --------------------------------------------------
@@ -333,10 +351,19 @@ def _dotted(loc: tuple[Any, ...]) -> str:
     return out or "(top level)"
 
 
+#: a site config is a few hundred kB even for thousands of devices; far more is a mistake
+MAX_CONFIG_BYTES = 16 * 1024 * 1024
+
+
 def parse_config(text: str, source: str = "<config>") -> SiteConfig:
+    if len(text) > MAX_CONFIG_BYTES:
+        raise ConfigError(f"{source}: {len(text)} characters; a site config is limited to "
+                          f"{MAX_CONFIG_BYTES} (is this the right file?)")
     try:
         root = yaml.compose(text)
         data = yaml.safe_load(text)
+    except RecursionError:
+        raise ConfigError(f"{source}: nested too deeply to be a site config") from None
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f"{source}:{mark.line + 1}" if mark else source
@@ -348,6 +375,8 @@ def parse_config(text: str, source: str = "<config>") -> SiteConfig:
         raise ConfigError(f"{source}:1: the top level must be a mapping of keys")
     try:
         cfg = SiteConfig.model_validate(data)
+    except RecursionError:
+        raise ConfigError(f"{source}: nested too deeply to be a site config") from None
     except ValidationError as exc:
         lines = []
         for err in exc.errors(include_input=False, include_url=False):

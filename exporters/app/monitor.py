@@ -13,6 +13,7 @@ import logging
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, replace
+from pathlib import Path
 
 import numpy as np
 
@@ -42,6 +43,7 @@ from lightwarden.rules.lifecycle import AlertLifecycle
 from lightwarden.rules.link_alerts import LinkAlerts
 from lightwarden.rules.outlook import RxWindow
 from lightwarden.rules.plant import Plant
+from lightwarden.rules.plausibility import flag_implausible
 from lightwarden.rules.spanloss import engineered_loss_db
 from lightwarden.rules.windows import WindowResolver
 
@@ -83,6 +85,8 @@ class MonitorParts:
     make_sources: Callable[[], list[PollSource]]
     make_history: Callable[[], History | None]
     shared: SharedParts
+    state_dir: Path  # where history, outbox and saved state live
+    stale_after_s: float = 300.0  # a failed device's last readings leave the metrics then
 
 
 class Monitor:
@@ -101,6 +105,9 @@ class Monitor:
         self.sources: list[PollSource] = []
         self.alert_sink = alert_sink
         self._views: dict[str, DeviceView] = {}
+        #: the devices of the running config (None until sources are built); outcomes of
+        #: others (a poll in flight when a reload removed its device) are dropped
+        self._active: set[str] | None = None
         self._alerts_enabled = alerts
         self.exposition.set_alert_source(self.lifecycle.open_alerts)
         # Consistency: each port's latest identity (kept while its device is silent, so a
@@ -166,8 +173,21 @@ class Monitor:
     # -- setup and teardown -----------------------------------------------------------
     def build_sources(self) -> list[PollSource]:
         """Make one source per device. Reads secrets; errors name device and reference."""
-        self.sources = self.parts.make_sources()
+        self.set_sources(self.parts.make_sources())
         return self.sources
+
+    def set_sources(self, sources: list[PollSource]) -> None:
+        self.sources = sources
+        self._active = {s.name for s in sources}
+
+    def forget_device(self, device: str) -> None:
+        """A device taken out of the config: its series end, its open alerts resolve."""
+        self._views.pop(device, None)
+        self.exposition.remove(device)
+        if self._alerts_enabled:
+            events = self.lifecycle.retire(device, self.clock())
+            if events and self.alert_sink is not None:
+                self.alert_sink(events)
 
     def open_history(self) -> History | None:
         """Start keeping reading history (for trends, advice and the planners' report)."""
@@ -185,6 +205,8 @@ class Monitor:
     # -- handling outcomes ----------------------------------------------------------
     def handle(self, outcome: PollOutcome) -> DeviceView:
         """Judge one poll, update metrics and alerts. Never raises for device trouble."""
+        if self._active is not None and outcome.device not in self._active:
+            return DeviceView(outcome, None)  # removed by a reload while it was polled
         now = outcome.started_at + outcome.duration_s
         if self.self_metrics is not None:
             self.self_metrics.observe_poll(outcome.duration_s, outcome.ok)
@@ -192,6 +214,7 @@ class Monitor:
         events: list[AlertEvent] = []
         far: dict[tuple[str, int, Quantity], AdviceContext] = {}
         if outcome.batch is not None:
+            flag_implausible(outcome.batch)  # a broken sensor's value is never judged
             assessment = assess(outcome.batch, targets=self.targets, tracker=self.parts.tracker,
                                 now=now, resolver=self.parts.resolver)
             far = self._far_ends(assessment)
@@ -206,13 +229,36 @@ class Monitor:
         elif self._alerts_enabled:
             events = self.lifecycle.mark_stale(outcome.device, now)
         events += self._check_links(outcome, now)
-        self.exposition.update(outcome, assessment)
+        last_good = None
+        prev = self._views.get(outcome.device)
+        if assessment is None and prev is not None:
+            last_good = prev.assessment or prev.last_good
+        since = (prev.health_since if prev is not None and prev.health == outcome.health
+                 else outcome.started_at)
+        fresh_enough = (last_good is not None
+                        and now - last_good.batch.taken_at <= self.parts.stale_after_s)
+        self.exposition.update(outcome, assessment, keep_readings=fresh_enough)
         view = self._views[outcome.device] = DeviceView(
-            outcome, assessment, far if outcome.batch is not None else {},
-            self._links(assessment) if assessment is not None else {})
-        if events and self.alert_sink is not None:
+            outcome, assessment, last_good=last_good, withdrawn=not fresh_enough,
+            health_since=since, contexts=far if outcome.batch is not None else {},
+            links=self._links(assessment) if assessment is not None else {})
+        # Called also without events when held conditions moved, so the sink saves them
+        # with the lifecycle (a restart must not resolve what the hysteresis holds).
+        if (events or self.parts.tracker.dirty) and self.alert_sink is not None:
             self.alert_sink(events)
         return view
+
+    def withdraw_stale(self, now: float) -> list[str]:
+        """Take readings older than the stale age out of the metrics (devices whose polls
+        fail keep their last readings there only that long). Returns the devices."""
+        out = []
+        for name, view in list(self._views.items()):
+            age = view.stale_for(now)
+            if age is not None and not view.withdrawn and age > self.parts.stale_after_s:
+                self.exposition.update(view.outcome, None)
+                view.withdrawn = True
+                out.append(name)
+        return out
 
     def _record(self, a: Assessment) -> None:
         assert self.history is not None
@@ -402,6 +448,6 @@ class Monitor:
         for n, view in enumerate(views):
             if view.assessment is not None:
                 merged = {**view.contexts, **self._far_ends(view.assessment)}
-                views[n] = self._views[view.outcome.device] = DeviceView(
-                    view.outcome, view.assessment, merged, self._links(view.assessment))
+                views[n] = self._views[view.outcome.device] = replace(
+                    view, contexts=merged, links=self._links(view.assessment))
         return views

@@ -14,6 +14,7 @@ from lightwarden.exporters.app.config import ConfigError, Device, SiteConfig
 from lightwarden.exporters.app.monitor import Monitor, MonitorParts
 from lightwarden.exporters.app.shard import mine
 from lightwarden.exporters.app.sources import build_sources
+from lightwarden.exporters.app.statedir import ensure_state_dir, resolve_state_dir, state_path
 from lightwarden.exporters.prometheus.exposition import Exposition
 from lightwarden.exporters.prometheus.self_metrics import SelfMetrics
 from lightwarden.exporters.store.history import History, HistoryError
@@ -161,14 +162,18 @@ def as_instance(cfg: SiteConfig, index: int, listen_port: int | None = None) -> 
     })  # fmt: skip
 
 
-def open_history(cfg: SiteConfig, base_dir: Path) -> History | None:
+def history_path(cfg: SiteConfig, state_dir: Path) -> Path:
+    return state_path(state_dir, cfg.history.path)
+
+
+def open_history(cfg: SiteConfig, state_dir: Path) -> History | None:
     """The reading history (for trends, advice and the planners' report), if kept."""
     h = cfg.history
     if not h.enabled:
         return None
-    path = Path(h.path)
-    if not path.is_absolute():
-        path = base_dir / path
+    path = history_path(cfg, state_dir)
+    if path.is_relative_to(state_dir):
+        ensure_state_dir(state_dir)
     try:
         return History(path, every_s=h.sample_every_s, keep_days=h.keep_days)
     except HistoryError as exc:
@@ -176,10 +181,11 @@ def open_history(cfg: SiteConfig, base_dir: Path) -> History | None:
 
 
 def make_sources(cfg: SiteConfig, base_dir: Path, catalogue: Catalogue,
-                 shared: SharedParts) -> list[PollSource]:
+                 shared: SharedParts, state_dir: Path | None = None) -> list[PollSource]:
     ctx = BuildContext(base_dir=base_dir, timeout_s=cfg.poll.timeout_s,
                        retries=cfg.poll.retries,
-                       pmd_names=tuple(s.name for s in catalogue), shared=shared)
+                       pmd_names=tuple(s.name for s in catalogue), shared=shared,
+                       state_dir=state_dir)
     return build_sources(cfg, my_devices(cfg), ctx)
 
 
@@ -193,16 +199,43 @@ def fibre_of(cfg: SiteConfig) -> dict[tuple[str, str], str]:
     return out
 
 
+def preflight(cfg: SiteConfig, *, base_dir: Path, state_dir: Path, alerts: bool = True,
+              clock: Callable[[], float] = time.time) -> Monitor:
+    """The one set of checks `run`, `check` and `validate` make before polling, and the
+    monitor they make it with: a device list (an empty shard of a sharded site is fine),
+    every source built (secrets read, platforms loaded, known_hosts present), the alert
+    destinations' secrets read. Writes nothing; the caller closes the monitor."""
+    if not cfg.devices:
+        raise ConfigError("devices: the list is empty; there is nothing to poll")
+    monitor = build_monitor(cfg, base_dir=base_dir, state_dir=state_dir, alerts=alerts,
+                            clock=clock)
+    try:
+        monitor.build_sources()
+        if alerts:
+            from lightwarden.exporters.app.alerting import destinations
+
+            destinations(cfg, base_dir)
+    except BaseException:
+        monitor.close()
+        raise
+    return monitor
+
+
 def build_monitor(
     cfg: SiteConfig,
     *,
     base_dir: Path | None = None,
+    state_dir: Path | None = None,
     clock: Callable[[], float] = time.time,
     alerts: bool = True,
     lifecycle: AlertLifecycle | None = None,
 ) -> Monitor:
-    """A monitor for this site config; sources are built (and secrets read) on first use."""
+    """A monitor for this site config; sources are built (and secrets read) on first use.
+
+    ``base_dir`` is the config file's folder (secrets, platform files); ``state_dir``
+    where everything written lives (default: statedir.resolve_state_dir)."""
     base = base_dir or Path.cwd()
+    state = state_dir or resolve_state_dir(None, cfg.state_dir, config_dir=base)
     catalogue = build_catalogue(cfg)
     targets = margin_targets(cfg)
     shared = SharedParts()
@@ -217,9 +250,11 @@ def build_monitor(
                               margin_target_sensitivity_db=targets.sensitivity_db),
         plant=plant_of(cfg, catalogue),
         plant_with=lambda pmd_of: plant_of(cfg, catalogue, pmd_of),
-        make_sources=lambda: make_sources(cfg, base, catalogue, shared),
-        make_history=lambda: open_history(cfg, base),
+        make_sources=lambda: make_sources(cfg, base, catalogue, shared, state),
+        make_history=lambda: open_history(cfg, state),
         shared=shared,
+        state_dir=state,
+        stale_after_s=cfg.poll.stale_after_s,
     )
     own = SelfMetrics()
     parts.exposition.set_self_metrics(own)

@@ -13,6 +13,7 @@ Routes are plain callables, so the status page and JSON API plug in without subc
 from __future__ import annotations
 
 import gzip
+import ipaddress
 import logging
 import socket
 import threading
@@ -33,7 +34,7 @@ GZIP_MIN_BYTES = 1024
 class HttpRequest:
     """What a route handler sees of a request."""
 
-    method: str  # "GET" or "HEAD"
+    method: str  # "GET", "HEAD" or (actions) "POST"
     path: str  # without the query string
     query: Mapping[str, list[str]]
     headers: Mapping[str, str]
@@ -133,7 +134,35 @@ class _Handler(BaseHTTPRequestHandler):
             extra={"Allow": "GET, HEAD"},
         )
 
-    do_POST = do_PUT = do_DELETE = do_PATCH = _method_not_allowed
+    do_PUT = do_DELETE = do_PATCH = _method_not_allowed
+
+    def do_POST(self) -> None:
+        owner = self.server.owner
+        path = urlsplit(self.path).path or "/"
+        handler = owner.post_route(path)
+        if handler is None:
+            self._method_not_allowed()
+            return
+        # Actions (a reload) are for the machine's own operators: a listener on a
+        # public address must not let the network trigger them.
+        if not _is_loopback(self.client_address[0]):
+            self._send(403, "text/plain; charset=utf-8", b"only from loopback\n", head=False)
+            return
+        length = int(self.headers.get("Content-Length") or 0)
+        if length > 65536:
+            self._send(413, "text/plain; charset=utf-8", b"body too large\n", head=False)
+            self.close_connection = True
+            return
+        if length:
+            self.rfile.read(length)  # no body is used; read it so keep-alive stays sane
+        request = HttpRequest(method="POST", path=path, query={},
+                              headers={k: v for k, v in self.headers.items()})
+        try:
+            status, ctype, body = handler(request)
+        except Exception as exc:
+            log.error("HTTP route %s failed: %s", path, type(exc).__name__)
+            status, ctype, body = 500, "text/plain; charset=utf-8", b"internal error\n"
+        self._send(status, ctype, body, head=False)
 
     def _serve(self, head: bool) -> None:
         owner = self.server.owner
@@ -205,6 +234,15 @@ class _Handler(BaseHTTPRequestHandler):
         log.debug("HTTP %s %s -> %s", self.command, urlsplit(self.path).path, code)
 
 
+def _is_loopback(host: str) -> bool:
+    try:
+        addr = ipaddress.ip_address(host)
+    except ValueError:
+        return False
+    mapped = getattr(addr, "ipv4_mapped", None)
+    return bool(addr.is_loopback or (mapped is not None and mapped.is_loopback))
+
+
 def _healthz(_req: HttpRequest) -> Response:
     return 200, "text/plain; charset=utf-8", b"ok\n"
 
@@ -233,6 +271,7 @@ class HttpServer:
         self.max_connections = max_connections
         self._slots = threading.BoundedSemaphore(max_connections)
         self._routes: dict[str, Handler] = {"/healthz": _healthz}
+        self._post_routes: dict[str, Handler] = {}
         self._routes_lock = threading.Lock()
         self._server: _Server | None = None
         self._thread: threading.Thread | None = None
@@ -245,6 +284,17 @@ class HttpServer:
             raise ValueError(f"{path} is the metrics path")
         with self._routes_lock:
             self._routes[path] = handler
+
+    def add_post_route(self, path: str, handler: Handler) -> None:
+        """An action answered to POST from loopback only (403 from anywhere else)."""
+        if not path.startswith("/"):
+            raise ValueError(f"route path must start with '/': {path!r}")
+        with self._routes_lock:
+            self._post_routes[path] = handler
+
+    def post_route(self, path: str) -> Handler | None:
+        with self._routes_lock:
+            return self._post_routes.get(path)
 
     def route(self, path: str) -> Handler | None:
         with self._routes_lock:

@@ -64,6 +64,9 @@ class OpticRow:
     advice: str = ""  # what to do about the worst condition ("" when healthy)
     caution: str = ""  # the laser-safety caution, when the advice means handling optics
     worst_row: int = -1  # batch row of the worst condition seen so far
+    #: seconds since these values were read, when they are from an earlier poll (the
+    #: device's latest poll failed); None when fresh
+    stale_s: float | None = None
 
     def as_json(self) -> dict[str, object]:
         out = {k: _rounded(getattr(self, k)) for k in self.__slots__ if k not in _NOT_IN_JSON}

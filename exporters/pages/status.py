@@ -47,14 +47,29 @@ class StatusPage:
     def rows(self) -> tuple[list[OpticRow], list[dict[str, object]]]:
         rows: list[OpticRow] = []
         devices: list[dict[str, object]] = []
+        # the monitor's clock where it has one (ages then follow its time)
+        now = getattr(self.monitor, "clock", time.time)()
         for name, view in sorted(self.monitor.views.items()):
             o = view.outcome
-            devices.append({"device": name, "up": o.ok or view.assessment is not None,
+            last = view.assessment or view.last_good
+            devices.append({"device": name, "health": view.health, "reason": o.reason,
+                            "since": view.health_since,
+                            "up": view.health != "down",
                             "error": o.error, "error_kind": o.error_kind,
-                            "polled_at": o.started_at})
+                            "polled_at": o.started_at,
+                            "last_success_at": last.batch.taken_at if last else None})
             if view.assessment is not None:
                 rows.extend(optic_rows(view.assessment, self.monitor.targets, view.contexts,
                                        view.links))
+            elif view.last_good is not None:
+                # The last readings we have, marked with their age: never shown as fresh.
+                age = view.stale_for(now)
+                for r in optic_rows(view.last_good, self.monitor.targets):
+                    r.stale_s = age
+                    stale = f"stale: read {_age(age)} ago"
+                    r.value_notes.insert(0, stale)
+                    r.notes.insert(0, stale)
+                    rows.append(r)
         worst_first(rows, self.monitor.targets)
         return rows, devices
 
@@ -108,11 +123,12 @@ class StatusPage:
             f"<p>{len(rows)} optic lanes on {len(devices)} devices, worst first; "
             f"page built {escape(time.strftime('%Y-%m-%d %H:%M:%S'))}.</p>",
         ]
-        down = [d for d in devices if not d["up"]]
-        if down:
-            out.append("<h2>Devices not answering</h2><ul>")
-            out += [f"<li>{escape(str(d['device']))}: {escape(str(d['error']))}</li>"
-                    for d in down]
+        trouble = [d for d in devices if d["health"] != "up"]
+        if trouble:
+            out.append("<h2>Devices not fully read</h2><ul>")
+            out += [f"<li>{escape(str(d['device']))}: <b>{escape(str(d['health']))}</b> "
+                    f"since {escape(_clock(d['since']))}: {escape(str(d['reason']))}</li>"
+                    for d in trouble]
             out.append("</ul>")
         alerts = list(self.monitor.open_alerts())
         if alerts:
@@ -177,6 +193,21 @@ def _where(a: AlertEvent) -> str:
         far = f" / {a.far_device} {a.far_port}" if a.far_device else ""
         return f"{a.device} {a.port}{far}"
     return f"{a.device} {a.port} lane {a.lane}"
+
+
+def _age(seconds: float | None) -> str:
+    s = 0 if seconds is None else int(seconds)
+    if s < 120:
+        return f"{s} s"
+    if s < 7200:
+        return f"{s // 60} min"
+    return f"{s // 3600} h"
+
+
+def _clock(at: object) -> str:
+    if not isinstance(at, int | float) or not at:
+        return "?"
+    return time.strftime("%Y-%m-%d %H:%M:%S", time.localtime(at))
 
 
 def _edge_sources(r: OpticRow) -> str:

@@ -36,6 +36,22 @@ class DeviceView:
     contexts: Mapping[tuple[str, int, Quantity], AdviceContext] = field(default_factory=dict)
     #: The span behind each lane with a far end in the plant, by (port, lane)
     links: Mapping[tuple[str, int], LinkLoss] = field(default_factory=dict)
+    #: after a failed poll: the last assessment that had readings (shown stale)
+    last_good: Assessment | None = None
+    #: its readings are no longer in the metrics (older than the stale age)
+    withdrawn: bool = False
+    #: when the device's health became what it is now (epoch seconds)
+    health_since: float = 0.0
+
+    @property
+    def health(self) -> str:
+        return self.outcome.health
+
+    def stale_for(self, now: float) -> float | None:
+        """Age of the readings shown, when they are from an earlier poll."""
+        if self.assessment is not None or self.last_good is None:
+            return None
+        return max(0.0, now - self.last_good.batch.taken_at)
 
 
 class MonitorView(Protocol):

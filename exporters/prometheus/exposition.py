@@ -38,7 +38,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
+from lightwarden.collector.readings import HEALTH_WORDS, PollOutcome, Quantity, ReadingStatus
 from lightwarden.exporters.prometheus.self_metrics import SelfMetrics
 from lightwarden.rules.consistency import Finding
 from lightwarden.rules.findings import (
@@ -79,7 +79,13 @@ CONTENT_TYPE = "text/plain; version=0.0.4; charset=utf-8"
     F_DEVICE_POLL_ERRORS,
     F_DEVICE_OPTICS,
     F_DEVICE_PROBLEMS,
-) = range(21)
+    F_DEVICE_HEALTH,
+) = range(22)
+
+#: families about the device's polls, refreshed by every poll; the others hold readings
+HEALTH_FAMILIES = frozenset({F_DEVICE_UP, F_DEVICE_LAST_SUCCESS, F_DEVICE_POLL_DURATION,
+                             F_DEVICE_POLL_ERRORS, F_DEVICE_OPTICS, F_DEVICE_PROBLEMS,
+                             F_DEVICE_HEALTH})
 
 
 def escape_label_value(value: str) -> str:
@@ -166,11 +172,12 @@ DEVICE_FAMILIES: tuple[Family, ...] = (
         "gauge",
         "1 for each reading the last poll could not give a value for, with the reason.",
     ),
-    Family("lightwarden_device_up", "gauge", "1 if the last poll of the device succeeded."),
+    Family("lightwarden_device_up", "gauge",
+           "1 if the last poll of the device read readings (fully or partly), else 0."),
     Family(
         "lightwarden_device_last_success_timestamp_seconds",
         "gauge",
-        "When the readings of the last successful poll were taken, Unix seconds.",
+        "When the readings of the last poll that read any were taken, Unix seconds.",
     ),
     Family(
         "lightwarden_device_poll_duration_seconds",
@@ -192,6 +199,12 @@ DEVICE_FAMILIES: tuple[Family, ...] = (
         "gauge",
         "Things the device reports about its optics that cannot be right (two sensors for "
         "one lane, say), counted at the last successful poll; the page and check name them.",
+    ),
+    Family(
+        "lightwarden_device_health",
+        "gauge",
+        "1 for the device's health after its last poll (up: all read; partial: some rows "
+        "lost; down: nothing read), 0 for the other two.",
     ),
 )
 
@@ -282,6 +295,7 @@ class _Health:
     problems: int = 0
     duration: float = 0.0
     up: bool = False
+    health: str = "down"
 
 
 def render_device(
@@ -558,8 +572,12 @@ class Exposition:
         """Append the monitor's own figures (process, polls, scrape cost) to every scrape."""
         self._self = self_metrics
 
-    def update(self, outcome: PollOutcome, assessment: Assessment | None = None) -> DeviceChunks:
-        """Render one poll of one device and replace that device's cached text."""
+    def update(self, outcome: PollOutcome, assessment: Assessment | None = None,
+               keep_readings: bool = False) -> DeviceChunks:
+        """Render one poll of one device and replace that device's cached text.
+
+        ``keep_readings``: a failed poll keeps the readings of the last one that read
+        any (the monitor withdraws them once they are older than its stale age)."""
         lines, skipped = render_device(outcome, assessment, self._options)
         device = outcome.device
         dev = escape_label_value(device)
@@ -567,18 +585,19 @@ class Exposition:
             h = self._health.get(device)
             if h is None:
                 h = self._health[device] = _Health()
-            h.up = outcome.ok
+            h.up = outcome.batch is not None
+            h.health = outcome.health
             h.duration = outcome.duration_s
             if outcome.error or outcome.batch is None:
                 kind = outcome.error_kind or "other"
                 h.errors[kind] = h.errors.get(kind, 0) + 1
-            if outcome.ok and outcome.batch is not None:
+            if outcome.batch is not None:
                 h.last_success = outcome.batch.taken_at
                 h.optics = len(outcome.batch.optics)
                 h.problems = sum(len(o.problems) for o in outcome.batch.optics)
             health = (h.up, h.duration, h.last_success, h.optics, sorted(h.errors.items()),
-                      h.problems)
-        up, duration, last_success, optics, errors, problems = health
+                      h.problems, h.health)
+        up, duration, last_success, optics, errors, problems, word = health
         lines[F_DEVICE_UP].append(f'lightwarden_device_up{{device="{dev}"}} {int(up)}\n')
         if math.isfinite(duration):
             lines[F_DEVICE_POLL_DURATION].append(
@@ -594,6 +613,9 @@ class Exposition:
             lines[F_DEVICE_OPTICS].append(f'lightwarden_device_optics{{device="{dev}"}} {optics}\n')
             lines[F_DEVICE_PROBLEMS].append(
                 f'lightwarden_device_problems{{device="{dev}"}} {problems}\n')
+        for w in HEALTH_WORDS:
+            lines[F_DEVICE_HEALTH].append(
+                f'lightwarden_device_health{{device="{dev}",health="{w}"}} {int(w == word)}\n')
         for kind, count in errors:
             lines[F_DEVICE_POLL_ERRORS].append(
                 f'lightwarden_device_poll_errors_total{{device="{dev}",'
@@ -601,14 +623,18 @@ class Exposition:
             )
         plain = tuple("".join(ls).encode("utf-8", "replace") for ls in lines)
         level = self._gzip_level
-        chunks = DeviceChunks(
-            device=device,
-            chunks=plain,
-            gz=tuple(_gz(c, level) if c else b"" for c in plain),
-            samples=sum(len(ls) for ls in lines),
-            skipped_rows=skipped,
-        )
+        gz = tuple(_gz(c, level) if c else b"" for c in plain)
+        samples = sum(len(ls) for ls in lines)
         with self._lock:
+            old = self._devices.get(device)
+            if keep_readings and outcome.batch is None and old is not None:
+                keep = [i not in HEALTH_FAMILIES for i in range(_N)]
+                plain = tuple(o if k else c for o, c, k in zip(old.chunks, plain, keep,
+                                                                 strict=True))
+                gz = tuple(o if k else c for o, c, k in zip(old.gz, gz, keep, strict=True))
+                samples = sum(c.count(b"\n") for c in plain)
+            chunks = DeviceChunks(device=device, chunks=plain, gz=gz, samples=samples,
+                                  skipped_rows=skipped)
             self._devices[device] = chunks
             self._generation += 1
         return chunks

@@ -38,6 +38,22 @@ class SelfMetrics:
             "Alert events waiting in the outbox for a receiver, all destinations.",
             registry=self.registry)
         self.alert_queue.set_function(lambda: 0.0)
+        self.config_ok = Gauge(
+            "lightwarden_self_config_reload_ok",
+            "1 if the last config reload (SIGHUP or POST /-/reload) was applied, 0 if it "
+            "was refused and the previous config keeps running.",
+            registry=self.registry)
+        self.config_ok.set(1)
+        self.config_loaded = Gauge(
+            "lightwarden_self_config_applied_timestamp_seconds",
+            "When the running config was applied (start or last successful reload).",
+            registry=self.registry)
+        self.config_loaded.set(time.time())
+
+    def observe_reload(self, ok: bool, at: float) -> None:
+        self.config_ok.set(1 if ok else 0)
+        if ok:
+            self.config_loaded.set(at)
 
     def observe_poll(self, duration_s: float, ok: bool) -> None:
         self.poll_seconds.labels("ok" if ok else "failed").observe(max(duration_s, 0.0))

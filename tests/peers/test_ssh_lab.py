@@ -8,6 +8,7 @@ one device's trouble never stops another's.
 from __future__ import annotations
 
 import asyncio
+import base64
 import logging
 import math
 import shutil
@@ -568,3 +569,25 @@ def test_yaml_syntax_and_duplicate_keys(tmp_path):
         load_platform(_definition(tmp_path, twice))
     assert info.value.key == "name" and info.value.line == _line_of(twice, "name: other")
     assert "twice" in info.value.message
+
+
+def test_passphrase_protected_key_login(server, workers, qmos, client_key, tmp_path):
+    """An OpenSSH private key encrypted with a passphrase (bcrypt KDF, aes256-ctr: the
+    OpenSSH key format, PROTOCOL.key) logs in; a wrong passphrase is a clear config error."""
+    key_file = tmp_path / "id_ed25519_enc"
+    # the fictional lab's passphrase; aes256-ctr with bcrypt, as ssh-keygen writes it
+    key_file.write_bytes(client_key.export_private_key(
+        "openssh", passphrase="quillmoor-kf", cipher_name="aes256-ctr"))
+    key_file.chmod(0o600)
+    body = base64.b64decode(b"".join(key_file.read_bytes().splitlines()[1:-1]))
+    assert body.startswith(b"openssh-key-v1\0") and b"aes256-ctr" in body and b"bcrypt" in body
+    creds = SshCredentials(LAB_SSH_USER, key_file=str(key_file), key_passphrase="quillmoor-kf")
+    out = run(poll(make_source(server, workers, qmos, "qm-f-key", credentials=creds)))
+    assert out.ok, out.error
+    wrong = SshCredentials(LAB_SSH_USER, key_file=str(key_file), key_passphrase="not-it")
+    bad = run(poll(make_source(server, workers, qmos, "qm-f-key", credentials=wrong)))
+    assert bad.error_kind == "config" and "passphrase" in bad.error, bad.error
+    assert "not-it" not in bad.error
+    none = SshCredentials(LAB_SSH_USER, key_file=str(key_file))
+    bad = run(poll(make_source(server, workers, qmos, "qm-f-key", credentials=none)))
+    assert bad.error_kind == "config" and "passphrase" in bad.error, bad.error

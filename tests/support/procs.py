@@ -69,7 +69,8 @@ class ProcError(RuntimeError):
 class Proc:
     """A child process whose stdout+stderr go to a log file we can quote on failure."""
 
-    def __init__(self, argv: Sequence[str], log_path: Path, cwd: Path | None = None) -> None:
+    def __init__(self, argv: Sequence[str], log_path: Path, cwd: Path | None = None,
+                 env: dict[str, str] | None = None) -> None:
         self.argv = list(argv)
         self.log_path = Path(log_path)
         self._log = open(self.log_path, "wb")  # noqa: SIM115 - closed in stop()
@@ -79,6 +80,7 @@ class Proc:
             stderr=subprocess.STDOUT,
             stdin=subprocess.DEVNULL,
             cwd=cwd,
+            env=env,
         )
 
     def log_tail(self, chars: int = 3000) -> str:

@@ -292,3 +292,31 @@ def test_first_polls_spread_over_the_whole_interval(monkeypatch):
 
     asyncio.run(main())
     assert sorted(bounds) == [45.0, 300.0]
+
+
+class PartialSource(CountingSource):
+    """Answers with some rows and a problem: a partial poll."""
+
+    async def poll(self, now: float) -> PollOutcome:
+        self.calls.append(now)
+        return PollOutcome(self.name, now, 0.0, batch=BatchBuilder(self.name).build(now),
+                           error=f"{self.name}: 'optics levels' line 7 not understood",
+                           error_kind="parse")  # fmt: skip
+
+
+def test_a_partial_poll_is_no_failure_for_the_schedule():
+    clock = FakeClock()
+    source = PartialSource("hgl-partial")
+    sched = PollScheduler([source], interval_s=10.0, clock=clock, backoff_cap_s=900.0)
+    device = sched.devices["hgl-partial"]
+
+    async def main():
+        for _ in range(6):
+            outcome = await sched.poll_device("hgl-partial")
+            assert outcome is not None and outcome.health == "partial"
+            clock.t += 10.0
+        # polled at every tick: no back-off, no failures counted
+        assert len(source.calls) == 6
+        assert device.consecutive_failures == 0 and device.skipped == 0
+
+    asyncio.run(main())

@@ -56,7 +56,9 @@ alerting:
         ("overrides: [{port: 'zz sfp1', rx_sensitivity_dbm: -10}]\n",
          "overrides[0].port: no device named 'zz'"),
         ("plant: [{a: 'a sfp1', b: 'nowhere', km: 1}]\n",
-         "plant[0].b: 'nowhere' is not \"DEVICE PORT\" of a known device"),
+         "plant[0].b: 'nowhere' is not \"DEVICE PORT\""),
+        ("plant: [{a: 'a sfp1', b: 'zz sfp1', km: 1}, {a: 'zz sfp2', b: 'a sfp2', km: 1}]\n",
+         "plant[0].b: no device named 'zz' (and 1 more reference)"),
         ("poll: {interval_s: 0}\n", "poll.interval_s: Input should be greater than 0"),
     ],
 )

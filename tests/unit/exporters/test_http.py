@@ -246,3 +246,24 @@ def test_real_prometheus_scrapes_us(server: HttpServer, tmp_path: Path) -> None:
         except subprocess.TimeoutExpired:
             proc.kill()
             proc.wait(timeout=TIMEOUT)
+
+
+def test_actions_answer_post_from_loopback_only(server: HttpServer) -> None:
+    from lightwarden.exporters.pages.http import _is_loopback
+
+    calls: list[str] = []
+    server.add_post_route("/-/reload", lambda req: (calls.append(req.method) or
+                                                    (200, "text/plain", b"done\n")))
+    req = urllib.request.Request(server.url + "/-/reload", method="POST", data=b"x")
+    with urllib.request.urlopen(req, timeout=TIMEOUT) as resp:
+        assert resp.status == 200 and resp.read() == b"done\n"
+    assert calls == ["POST"]
+    assert get(server.url + "/-/reload")[0] == 404  # not a page
+    bad = urllib.request.Request(server.url + "/metrics", method="POST", data=b"")
+    with pytest.raises(urllib.error.HTTPError) as err:
+        urllib.request.urlopen(bad, timeout=TIMEOUT)
+    assert err.value.code == 405
+    # the rule the handler applies to the peer's address
+    assert _is_loopback("127.0.0.1") and _is_loopback("::1") and _is_loopback("::ffff:127.0.0.1")
+    assert not _is_loopback("192.0.2.7") and not _is_loopback("::ffff:192.0.2.7")
+    assert not _is_loopback("not-an-address")

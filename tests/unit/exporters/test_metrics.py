@@ -422,8 +422,32 @@ def test_partial_poll_exports_rows_and_counts_the_error() -> None:
     )
     exp.update(partial)
     found = samples(exp.body())
-    assert one(found["lightwarden_device_up"], device=DEV) == 0
+    # A partial poll read rows: the device answers (no false "unreachable"), its health
+    # says partial, the rows it got are fresh, and the error is counted.
+    assert one(found["lightwarden_device_up"], device=DEV) == 1
+    assert one(found["lightwarden_device_health"], device=DEV, health="partial") == 1
+    assert one(found["lightwarden_device_health"], device=DEV, health="up") == 0
+    assert one(found["lightwarden_device_health"], device=DEV, health="down") == 0
     assert one(found["lightwarden_device_poll_errors_total"], device=DEV, kind="dropped") == 1
     assert one(found["lightwarden_bias_amperes"], device=DEV, port="sfp1", lane=1) == 0.012
-    # not a success: no last-success time yet
-    assert "lightwarden_device_last_success_timestamp_seconds" not in found
+    assert one(found["lightwarden_device_last_success_timestamp_seconds"],
+               device=DEV) == batch.taken_at
+
+
+def test_a_failed_poll_keeps_the_last_readings_only_when_asked() -> None:
+    exp = Exposition()
+    batch = lab_batch(DEV)
+    exp.update(PollOutcome(DEV, batch.taken_at, 1.0, batch=batch))
+    down = PollOutcome(DEV, batch.taken_at + 60, 2.0, error="timed out",
+                       error_kind=PollErrorKind.TIMEOUT)
+    exp.update(down, keep_readings=True)
+    found = samples(exp.body())
+    assert one(found["lightwarden_device_up"], device=DEV) == 0
+    assert one(found["lightwarden_device_health"], device=DEV, health="down") == 1
+    assert one(found["lightwarden_bias_amperes"], device=DEV, port="sfp1", lane=1) == 0.012
+    assert one(found["lightwarden_device_last_success_timestamp_seconds"],
+               device=DEV) == batch.taken_at
+    exp.update(down)  # withdrawn: only the health families remain
+    found = samples(exp.body())
+    assert "lightwarden_bias_amperes" not in found
+    assert one(found["lightwarden_device_up"], device=DEV) == 0

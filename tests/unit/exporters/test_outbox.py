@@ -175,3 +175,16 @@ def test_unopenable_path_names_file(tmp_path):
     blocker.write_text("")
     with pytest.raises(OutboxError, match=r"cannot open alert outbox .*file"):
         Outbox(blocker / "outbox.sqlite")
+
+
+def test_snapshots_that_belong_together_are_saved_together_or_not_at_all(path):
+    box = Outbox(path)
+    box.save_states({"lifecycle": {"a": 1}, "held/qm-core-b": {"rows": []}})
+    with pytest.raises(ValueError, match="held/qm-x"):
+        # the second cannot be saved, so the first must not be either
+        box.save_states({"lifecycle": {"a": 2}, "held/qm-x": {"bad": math.nan}})
+    box.close()
+    again = Outbox(path)
+    assert again.load_state("lifecycle") == {"a": 1}
+    assert again.state_names("held/") == ["held/qm-core-b"]
+    again.close()

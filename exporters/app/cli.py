@@ -540,7 +540,7 @@ def build_parser() -> argparse.ArgumentParser:
     b = sub.add_parser("bench", help="measure what polling costs this process")
     bsub = b.add_subparsers(dest="bench_command", required=True)
     bp = bsub.add_parser("poll", help="discover one SNMP device, then poll it N times")
-    bp.add_argument("target", metavar="HOST[:PORT]")
+    bp.add_argument("target", metavar="HOST[:PORT]", help="the SNMP device to measure")
     _target_args(bp)
     bp.add_argument("--cycles", type=int, default=10, metavar="N", help="steady polls")
     bp.add_argument("--json", action="store_true", help="print JSON")

@@ -15,16 +15,13 @@ import numpy as np
 from lightwarden.collector.readings import Quantity
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets
+from lightwarden.rules.drift import Drift, Forecast, NoForecast, drift, forecast
 from lightwarden.rules.spanloss import judge_span_loss, span_loss_growth
-from lightwarden.rules.trend import fit_trend, forecast_crossing, laser_wear
+from lightwarden.rules.trend import Baseline, laser_wear
 
 DAY = 86400.0
 #: samples at each end of a history compared for span loss growth
 GROWTH_SAMPLES = 5
-#: a trend drawn through less history than this is noise, not ageing: with DDM
-#: readings good to a few tenths of a dB between samples, hours say nothing about months
-MIN_TREND_SPAN_S = DAY
-MIN_TREND_SAMPLES = 10
 
 
 @dataclass(slots=True)
@@ -64,8 +61,17 @@ def span_losses(tx: Series, rx: Series) -> np.ndarray:
     return np.asarray(np.interp(rx.times[inside], tx.times, tx.values) - rx.values[inside])
 
 
-def enough_for_trend(s: Series) -> bool:
-    return len(s) >= MIN_TREND_SAMPLES and float(s.times[-1] - s.times[0]) >= MIN_TREND_SPAN_S
+def series_drift(s: Series, now: float | None = None) -> Drift:
+    """The robust drift of one series (rules/drift.py), judged at ``now`` (default: its end)."""
+    at = now if now is not None else (float(s.times[-1]) if len(s) else 0.0)
+    return drift(s.times, s.values, at)
+
+
+def _on(times: np.ndarray, other: Series | None) -> np.ndarray | None:
+    """``other`` interpolated onto ``times`` (series of one module are polled together)."""
+    if other is None or len(other) < 2:
+        return None
+    return np.asarray(np.interp(times, other.times, other.values))
 
 
 def _growth(losses: np.ndarray) -> float | None:
@@ -75,22 +81,24 @@ def _growth(losses: np.ndarray) -> float | None:
 
 
 def advice_context(quantity: Quantity, own: Series, tx: Series | None, bias: Series | None,
-                   wear_end: str) -> AdviceContext:
+                   wear_end: str, temperature: Series | None = None,
+                   baseline: Baseline | None = None) -> AdviceContext:
     """History facts for one reading.
 
-    ``own`` is the reading's own series; ``tx`` and ``bias`` are those of the laser that
-    feeds it (the far end's for Rx power, its own for Tx power and bias), None when that
-    laser is not known (no plant record for an Rx port).
+    ``own`` is the reading's own series; ``tx``, ``bias`` and ``temperature`` are those
+    of the module whose laser feeds it (the far end's for Rx power, its own for Tx power
+    and bias), None when that laser is not known (no plant record for an Rx port);
+    ``baseline`` is that module's first-seen readings. The rate is given only when the
+    slope's interval excludes zero since the last step (a believed slide).
     """
-    trend = fit_trend(own.times, own.values) if enough_for_trend(own) else None
-    rate = trend.rate_per_day if trend is not None else None
+    d = series_drift(own)
+    rate = d.rate_per_day if d.moving else None
     if tx is None:
         return AdviceContext(rate_per_day=rate)
     wear = growth = None
     if len(tx) >= 2:
-        bias_on_tx = (np.interp(tx.times, bias.times, bias.values)
-                      if bias is not None and len(bias) >= 2 else None)
-        wear = laser_wear(tx.times, tx.values, bias_on_tx)
+        wear = laser_wear(tx.times, tx.values, _on(tx.times, bias),
+                          temperature_c=_on(tx.times, temperature), baseline=baseline)
     if quantity is Quantity.RX_POWER:
         growth = _growth(span_losses(tx, own))
     return AdviceContext(span_growth_db=growth, wear=wear, wear_end=wear_end,
@@ -107,14 +115,22 @@ class LaneOutlook:
     sensitivity_dbm: float | None
     overload_dbm: float | None
     window_source: str
-    rate_db_per_day: float | None
+    rate_db_per_day: float | None  # Theil–Sen slope since the last step (None: none fitted)
+    rate_low: float | None  # the slope's 95 % interval
+    rate_high: float | None
     samples: int
-    #: when the margin target will no longer be met / when the edge itself is reached
+    #: when the margin target will no longer be met / when the edge itself is reached,
+    #: with the earliest and latest dates the slope's interval allows
     target_lost_at: float | None
     edge_reached_at: float | None
     laser_worn: bool | None
     laser_note: str
     history_note: str = ""
+    target_earliest: float | None = None
+    target_latest: float | None = None
+    no_forecast: str = ""  # a NoForecast word when there is no date
+    last_step_at: float | None = None
+    last_step_db: float | None = None
 
 
 @dataclass(slots=True)
@@ -138,34 +154,43 @@ class PlannerReport:
 
 def lane_outlook(w: RxWindow, rx: Series, ctx: AdviceContext, targets: MarginTargets,
                  now: float, horizon_s: float) -> LaneOutlook:
-    """One receiver lane's outlook: its rate and when it loses its target and its edge."""
-    span_s = float(rx.times[-1] - rx.times[0]) if len(rx) else 0.0
-    enough = enough_for_trend(rx)
-    trend = fit_trend(rx.times, rx.values) if enough else None
-    note = "" if enough else (f"history too short for a trend ({len(rx)} samples over "
-                              f"{span_s / 3600:.1f} h; needs {MIN_TREND_SAMPLES} over "
-                              f"{MIN_TREND_SPAN_S / 3600:.0f} h)")
-    target_at = edge_at = None
-    if trend is not None and trend.slope_per_s < 0 and w.sensitivity is not None:
-        target_at = forecast_crossing(rx.times, rx.values, w.sensitivity + targets.sensitivity_db,
-                                      now, horizon_s=horizon_s)
-        edge_at = forecast_crossing(rx.times, rx.values, w.sensitivity, now,
-                                    horizon_s=horizon_s)
-    elif trend is not None and trend.slope_per_s > 0 and w.overload is not None:
-        target_at = forecast_crossing(rx.times, rx.values, w.overload - targets.overload_db,
-                                      now, horizon_s=horizon_s)
-        edge_at = forecast_crossing(rx.times, rx.values, w.overload, now, horizon_s=horizon_s)
+    """One receiver lane's outlook: its rate and when it loses its target and its edge.
+
+    The direction of travel picks the edge: a falling Rx runs towards sensitivity, a
+    rising one towards overload.
+    """
+    d = series_drift(rx, now)
+    target = edge = Forecast(None, None, None, d.reason or NoForecast.MOVING_AWAY)
+    rising = d.rate_per_day is not None and d.rate_per_day > 0.0
+    if d.reason is None and not rising and w.sensitivity is not None:
+        target = forecast(d, w.sensitivity + targets.sensitivity_db, True, now, horizon_s)
+        edge = forecast(d, w.sensitivity, True, now, horizon_s)
+    elif d.reason is None and rising and w.overload is not None:
+        target = forecast(d, w.overload - targets.overload_db, False, now, horizon_s)
+        edge = forecast(d, w.overload, False, now, horizon_s)
+    step = d.steps[-1] if d.steps else None
     return LaneOutlook(
         device=w.device, port=w.port, lane=w.lane, pmd=w.pmd,
         rx_power_dbm=float(rx.values[-1]) if len(rx) else None,
         sensitivity_dbm=w.sensitivity, overload_dbm=w.overload, window_source=w.source,
-        rate_db_per_day=trend.rate_per_day if trend is not None else None,
-        samples=len(rx), target_lost_at=target_at, edge_reached_at=edge_at,
+        rate_db_per_day=d.rate_per_day, rate_low=d.low_per_day, rate_high=d.high_per_day,
+        samples=len(rx), target_lost_at=target.at, edge_reached_at=edge.at,
         laser_worn=ctx.wear.worn if ctx.wear is not None else None,
         laser_note=(f"{ctx.wear_end} end: {ctx.wear.reason or 'no sign of wear'}"
                     if ctx.wear is not None else "far end unknown (no plant record)"),
-        history_note=note,
+        history_note=_history_note(d, len(rx)),
+        target_earliest=target.earliest, target_latest=target.latest,
+        no_forecast=str(target.reason) if target.reason is not None else "",
+        last_step_at=step.t if step else None, last_step_db=step.jump if step else None,
     )
+
+
+def _history_note(d: Drift, samples: int) -> str:
+    if d.reason is NoForecast.TOO_SHORT:
+        return f"history too short for a trend ({samples} samples)"
+    if d.reason is NoForecast.JUST_STEPPED:
+        return "stepped recently; too little history since the step for a trend"
+    return ""
 
 
 def span_outlook(label: str, budget_db: float, tx: Series, rx: Series) -> SpanOutlook:

@@ -133,7 +133,8 @@ def open_history(cfg: SiteConfig, base_dir: Path) -> History | None:
     if not path.is_absolute():
         path = base_dir / path
     try:
-        return History(path, every_s=h.sample_every_s, keep_days=h.keep_days)
+        return History(path, every_s=h.sample_every_s, keep_days=h.keep_days,
+                       raw_days=h.raw_days, daily_days=h.daily_days)
     except HistoryError as exc:
         raise ConfigError(f"history.path: {exc}") from None
 

@@ -18,14 +18,20 @@ from __future__ import annotations
 import math
 import sqlite3
 import threading
-from itertools import repeat
 from pathlib import Path
 from typing import Literal
 
 import numpy as np
 
 from lightwarden.collector.readings import Quantity, ReadingBatch, ReadingStatus
-from lightwarden.exporters.store.schema import SchemaError, migrate
+from lightwarden.exporters.store.schema import (
+    ID_DTYPE,
+    VALUE_DTYPE,
+    SchemaError,
+    migrate,
+    pack_ids,
+    pack_values,
+)
 from lightwarden.rules.outlook import RxWindow, Series
 from lightwarden.rules.trend import Baseline
 
@@ -62,6 +68,8 @@ class History:
         self._ids: dict[tuple[str, str, int, int], int] = {}
         self._baseline_n: dict[tuple[str, int], int] = {}
         self._fitted: dict[tuple[str, str], str] = {}
+        self._layouts: dict[str, tuple[object, bytes]] = {}
+        self._modules_done: dict[str, bool] = {}
         self._dirty_from: float | None = None
         self._closed = False
         try:
@@ -145,21 +153,17 @@ class History:
         idx = np.flatnonzero(mask)
         if idx.size == 0:
             return 0
-        optic = batch.optic[idx].tolist()
-        lane = batch.lane[idx].tolist()
-        qty = batch.quantity[idx].tolist()
-        value = batch.value[idx].tolist()
-        ports = [o.port for o in batch.optics]
-        dev = batch.device
-        keys = [(dev, ports[o], la, q) for o, la, q in zip(optic, lane, qty, strict=True)]
+        value = batch.value[idx]
         t = round(batch.taken_at)
         with self._lock:
             try:
                 with self._db:
-                    ids = self._series_ids(keys)
-                    self._db.executemany("INSERT OR REPLACE INTO raw VALUES (?, ?, ?)",
-                                         zip(ids, repeat(t), value))
-                    self._note_modules(batch, optic, lane, qty, value)
+                    ids, fresh = self._layout(batch, idx)
+                    self._db.execute(
+                        "INSERT OR REPLACE INTO poll (device, t, series, value) "
+                        "VALUES (?, ?, ?, ?)", (batch.device, t, ids, pack_values(value)))
+                    if fresh or not self._modules_done.get(batch.device, False):
+                        self._note_modules(batch, idx, value.tolist())
                     if windows:
                         self._db.executemany(
                             "INSERT OR REPLACE INTO rx_window VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
@@ -171,12 +175,35 @@ class History:
             except sqlite3.Error as exc:
                 raise HistoryError(f"history {self.path}: {exc}") from None
         self._last_kept[batch.device] = batch.taken_at
-        return len(keys)
+        return int(value.size)
 
-    def _note_modules(self, batch: ReadingBatch, optic: list[int], lane: list[int],
-                      qty: list[int], value: list[float]) -> None:
+    def _layout(self, batch: ReadingBatch, idx: np.ndarray) -> tuple[bytes, bool]:
+        """Series ids of the kept rows; reused while the device's rows keep their layout.
+
+        A device's polls repeat the same optics, lanes and quantities in the same order,
+        so the per-row key lookups run only when that changes (a module fitted, pulled,
+        or a reading missing); True as the second item when they ran.
+        """
+        sig = (tuple((o.port, o.serial) for o in batch.optics), idx.tobytes(),
+               batch.optic[idx].tobytes(), batch.lane[idx].tobytes(),
+               batch.quantity[idx].tobytes())
+        got = self._layouts.get(batch.device)
+        if got is not None and got[0] == sig:
+            return got[1], False
+        ports = [o.port for o in batch.optics]
+        keys = [(batch.device, ports[o], la, q) for o, la, q in zip(
+            batch.optic[idx].tolist(), batch.lane[idx].tolist(), batch.quantity[idx].tolist(),
+            strict=True)]
+        ids = pack_ids(self._series_ids(keys))
+        self._layouts[batch.device] = (sig, ids)
+        return ids, True
+
+    def _note_modules(self, batch: ReadingBatch, idx: np.ndarray, value: list[float]) -> None:
         """Which serial sits in each port, and the first polls of each serial's baseline."""
         db, t = self._db, batch.taken_at
+        optic = batch.optic[idx].tolist()
+        lane = batch.lane[idx].tolist()
+        qty = batch.quantity[idx].tolist()
         for o in set(optic):
             ident = batch.optics[o]
             if ident.serial and self._fitted.get((batch.device, ident.port)) != ident.serial:
@@ -202,11 +229,15 @@ class History:
                        (n, n, v, n, serial, la))
         seen = {(batch.optics[o].serial, la) for o, la, q in zip(optic, lane, qty, strict=True)
                 if batch.optics[o].serial and q in _BASELINE_COLUMN}
+        done = True
         for key in seen:
             n = self._baseline_n[key]
             if n < BASELINE_POLLS:
                 db.execute("UPDATE baseline SET n = n + 1 WHERE serial = ? AND lane = ?", key)
-                self._baseline_n[key] = n + 1
+                self._baseline_n[key] = n = n + 1
+            done = done and n >= BASELINE_POLLS
+        # every module of the device has its baseline: skip this until its layout changes
+        self._modules_done[batch.device] = done
 
     # -- the sweep ------------------------------------------------------------------
     def sweep(self, now: float) -> None:
@@ -225,11 +256,8 @@ class History:
                 # an hour whose raw samples retention has taken cannot be recomputed
                 start_h = max(int(self._dirty_from) // HOUR * HOUR, raw_cut // HOUR * HOUR)
                 end_h = now // HOUR * HOUR  # the current hour is not complete
-                if start_h < end_h:
-                    db.execute(
-                        "INSERT OR REPLACE INTO hourly SELECT series, t - t % 3600, count(*), "
-                        "min(value), avg(value), max(value) FROM raw WHERE t >= ? AND t < ? "
-                        "GROUP BY series, t - t % 3600", (start_h, end_h))
+                for lo in range(start_h, end_h, DAY):  # a day at a time bounds the memory
+                    self._roll_hours(lo, min(lo + DAY, end_h))
                 start_d = start_h // DAY * DAY
                 end_d = end_h // DAY * DAY
                 if start_d < end_d:
@@ -240,11 +268,34 @@ class History:
                         (start_d, end_d))
                 # what is left to roll up next time: the incomplete hour and day
                 self._dirty_from = float(min(end_h, end_d))
-            db.execute("DELETE FROM raw WHERE t < ?", (raw_cut,))
+            db.execute("DELETE FROM poll WHERE t < ?", (raw_cut,))
             db.execute("DELETE FROM hourly WHERE t < ?", (now - int(self.hourly_s),))
             db.execute("DELETE FROM daily WHERE t < ?", (now - int(self.daily_s),))
             self._set_state("swept_until", float(now))
         self._next_sweep = now + self.sweep_every_s
+
+    def _roll_hours(self, lo: int, hi: int) -> None:
+        """Hourly n/min/avg/max of the raw polls in [lo, hi), grouped in numpy."""
+        rows = self._db.execute("SELECT t, series, value FROM poll WHERE t >= ? AND t < ?",
+                                (lo, hi)).fetchall()
+        if not rows:
+            return
+        sid = np.concatenate([np.frombuffer(r[1], dtype=ID_DTYPE) for r in rows])
+        val = np.concatenate([np.frombuffer(r[2], dtype=VALUE_DTYPE) for r in rows])
+        t = np.repeat(np.array([r[0] for r in rows], dtype=np.int64),
+                      [len(r[1]) // ID_DTYPE.itemsize for r in rows])
+        hour = t - t % HOUR
+        order = np.lexsort((hour, sid))
+        sid, hour, val = sid[order], hour[order], val[order]
+        edge = np.flatnonzero((np.diff(sid) != 0) | (np.diff(hour) != 0)) + 1
+        starts = np.concatenate([[0], edge])
+        n = np.diff(np.concatenate([starts, [sid.size]]))
+        mins = np.minimum.reduceat(val, starts)
+        maxs = np.maximum.reduceat(val, starts)
+        means = np.add.reduceat(val, starts) / n
+        self._db.executemany("INSERT OR REPLACE INTO hourly VALUES (?, ?, ?, ?, ?, ?)", zip(
+            sid[starts].tolist(), hour[starts].tolist(), n.tolist(), mins.tolist(),
+            means.tolist(), maxs.tolist(), strict=True))
 
     # -- reading --------------------------------------------------------------------
     def _id(self, device: str, port: str, lane: int, quantity: Quantity) -> int | None:
@@ -265,30 +316,66 @@ class History:
                 return Series(np.empty(0), np.empty(0))
             db = self._db
             if tier is not None:
-                got = self._tier(sid, tier, lo, 2**62)
+                got = self._tier(sid, device, tier, lo, 2**62)
             else:
-                raw_from = db.execute("SELECT min(t) FROM raw WHERE series = ?",
-                                      (sid,)).fetchone()[0]
+                raw_from = db.execute("SELECT min(t) FROM poll WHERE device = ?",
+                                      (device,)).fetchone()[0]
                 hourly_from = db.execute("SELECT min(t) FROM hourly WHERE series = ?",
                                          (sid,)).fetchone()[0]
                 raw_from = 2**62 if raw_from is None else int(raw_from)
                 hourly_from = raw_from if hourly_from is None else int(hourly_from)
-                got = (self._tier(sid, "daily", lo, min(hourly_from, raw_from) - DAY + 1)
-                       + self._tier(sid, "hourly", lo, raw_from - HOUR + 1)
-                       + self._tier(sid, "raw", max(lo, raw_from), 2**62))
+                got = (self._tier(sid, device, "daily", lo, min(hourly_from, raw_from) - DAY + 1)
+                       + self._tier(sid, device, "hourly", lo, raw_from - HOUR + 1)
+                       + self._tier(sid, device, "raw", max(lo, raw_from), 2**62))
         arr = np.asarray(got, dtype=np.float64).reshape(-1, 2)
         return Series(np.ascontiguousarray(arr[:, 0]), np.ascontiguousarray(arr[:, 1]))
 
-    def _tier(self, sid: int, tier: Tier, lo: int, hi: int) -> list[tuple[float, float]]:
+    def _tier(self, sid: int, device: str, tier: Tier, lo: int, hi: int
+              ) -> list[tuple[float, float]]:
         """Rows of one tier whose bins start in [lo, hi), as (time, value)."""
         if tier == "raw":
-            q = "SELECT t, value FROM raw WHERE series = ? AND t >= ? AND t < ? ORDER BY t"
-        else:
-            half = (HOUR if tier == "hourly" else DAY) // 2
-            q = (f"SELECT t + {half}, avg FROM {tier} WHERE series = ? AND t >= ? AND t < ? "
-                 "ORDER BY t")
+            return self._raw(sid, device, lo, hi)
+        half = (HOUR if tier == "hourly" else DAY) // 2
+        q = (f"SELECT t + {half}, avg FROM {tier} WHERE series = ? AND t >= ? AND t < ? "
+             "ORDER BY t")
         rows: list[tuple[float, float]] = self._db.execute(q, (sid, lo, hi)).fetchall()
         return rows
+
+    def _raw(self, sid: int, device: str, lo: int, hi: int) -> list[tuple[float, float]]:
+        """One series out of its device's polls.
+
+        SQLite cuts the 8 bytes out of each poll whose layout (series ids) is the
+        device's latest, so only those cross into Python; polls of an older layout (a
+        module fitted or pulled since) are searched one by one.
+        """
+        db = self._db
+        last = db.execute("SELECT series FROM poll WHERE device = ? ORDER BY t DESC LIMIT 1",
+                          (device,)).fetchone()
+        if last is None:
+            return []
+        hit = np.flatnonzero(np.frombuffer(last[0], dtype=ID_DTYPE) == sid)
+        pos = int(hit[0]) if hit.size else -1
+        size = VALUE_DTYPE.itemsize
+        out: list[tuple[int, bytes]] = []
+        for t, same, cut in db.execute(
+                "SELECT t, series = ?1, substr(value, ?2, ?3) FROM poll "
+                "WHERE device = ?4 AND t >= ?5 AND t < ?6 ORDER BY t",
+                (last[0], pos * size + 1, size, device, lo, hi)):
+            if same and pos >= 0:
+                out.append((t, cut))
+                continue
+            if same:
+                continue
+            ids, values = db.execute("SELECT series, value FROM poll WHERE device = ? AND t = ?",
+                                     (device, t)).fetchone()
+            found = np.flatnonzero(np.frombuffer(ids, dtype=ID_DTYPE) == sid)
+            if found.size:
+                out.append((t, values[int(found[0]) * size:(int(found[0]) + 1) * size]))
+        if not out:
+            return []
+        times = [t for t, _ in out]
+        vals = np.frombuffer(b"".join(v for _, v in out), dtype=VALUE_DTYPE).tolist()
+        return list(zip(times, vals, strict=True))
 
     def summary(self, device: str, port: str, lane: int, quantity: Quantity,
                 tier: Literal["hourly", "daily"], since: float | None = None
@@ -344,5 +431,8 @@ class History:
     def counts(self) -> dict[str, int]:
         """Rows per table, for the disk-cost figures and the check command."""
         with self._lock:
-            return {t: int(self._db.execute(f"SELECT count(*) FROM {t}").fetchone()[0])
-                    for t in ("series", "raw", "hourly", "daily", "baseline")}
+            got = {t: int(self._db.execute(f"SELECT count(*) FROM {t}").fetchone()[0])
+                   for t in ("series", "poll", "hourly", "daily", "baseline")}
+            (raw_bytes,) = self._db.execute("SELECT sum(length(value)) FROM poll").fetchone()
+        got["raw"] = int(raw_bytes or 0) // VALUE_DTYPE.itemsize
+        return got

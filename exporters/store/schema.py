@@ -2,14 +2,19 @@
 
 ``PRAGMA user_version`` holds the version. Version 1 (user_version 0, as the first
 release wrote it) kept one text-keyed ``reading`` table of raw samples; version 2 keys
-samples by a small integer per series, adds the hourly and daily tiers, module
-temperature, the first-seen baseline per module serial and a little state.
+samples by a small integer per series and keeps raw samples as one row per device poll
+(the series ids and values as packed arrays, so a poll of 200 readings is one insert),
+adds the hourly and daily tiers, module temperature, the first-seen baseline per module
+serial and a little state.
 Each migration runs in one transaction, so a failed one leaves the file as it was.
 """
 
 from __future__ import annotations
 
 import sqlite3
+from collections.abc import Sequence
+
+import numpy as np
 
 VERSION = 2
 
@@ -22,13 +27,15 @@ CREATE TABLE IF NOT EXISTS series (
     quantity INTEGER NOT NULL,
     UNIQUE (device, port, lane, quantity)
 );
-CREATE TABLE IF NOT EXISTS raw (
-    series INTEGER NOT NULL,
+CREATE TABLE IF NOT EXISTS poll (
+    id INTEGER PRIMARY KEY,
+    device TEXT NOT NULL,
     t INTEGER NOT NULL,
-    value REAL NOT NULL,
-    PRIMARY KEY (series, t)
-) WITHOUT ROWID;
-CREATE INDEX IF NOT EXISTS raw_by_time ON raw (t);
+    series BLOB NOT NULL,
+    value BLOB NOT NULL
+);
+CREATE UNIQUE INDEX IF NOT EXISTS poll_by_device ON poll (device, t);
+CREATE INDEX IF NOT EXISTS poll_by_time ON poll (t);
 CREATE TABLE IF NOT EXISTS hourly (
     series INTEGER NOT NULL,
     t INTEGER NOT NULL,
@@ -86,6 +93,19 @@ CREATE TABLE IF NOT EXISTS state (
 """
 
 
+#: raw samples are one row per device poll: the series ids and the values as arrays
+ID_DTYPE = np.dtype("<i4")
+VALUE_DTYPE = np.dtype("<f8")
+
+
+def pack_ids(ids: Sequence[int] | np.ndarray) -> bytes:
+    return np.asarray(ids, dtype=ID_DTYPE).tobytes()
+
+
+def pack_values(values: Sequence[float] | np.ndarray) -> bytes:
+    return np.asarray(values, dtype=VALUE_DTYPE).tobytes()
+
+
 class SchemaError(RuntimeError):
     pass
 
@@ -106,9 +126,16 @@ def _from_v1(db: sqlite3.Connection) -> None:
         return
     db.execute("INSERT OR IGNORE INTO series (device, port, lane, quantity) "
                "SELECT DISTINCT device, port, lane, quantity FROM reading")
-    db.execute("INSERT OR REPLACE INTO raw (series, t, value) "
-               "SELECT s.id, CAST(round(r.t) AS INTEGER), r.value FROM reading r JOIN series s "
-               "USING (device, port, lane, quantity)")
+    rows = db.execute(
+        "SELECT r.device, CAST(round(r.t) AS INTEGER), s.id, r.value FROM reading r "
+        "JOIN series s USING (device, port, lane, quantity) ORDER BY r.device, r.t, s.id")
+    polls: dict[tuple[str, int], tuple[list[int], list[float]]] = {}
+    for device, t, sid, value in rows:
+        ids, values = polls.setdefault((device, t), ([], []))
+        ids.append(sid)
+        values.append(value)
+    db.executemany("INSERT OR REPLACE INTO poll (device, t, series, value) VALUES (?, ?, ?, ?)",
+                   [(d, t, pack_ids(ids), pack_values(v)) for (d, t), (ids, v) in polls.items()])
     db.execute("DROP TABLE reading")
 
 

@@ -67,6 +67,7 @@ class History:
         self._last_kept: dict[str, float] = {}
         self._ids: dict[tuple[str, str, int, int], int] = {}
         self._baseline_n: dict[tuple[str, int], int] = {}
+        self._pending: dict[tuple[str, int], dict[str, tuple[float, int]]] = {}
         self._fitted: dict[tuple[str, str], str] = {}
         self._layouts: dict[str, tuple[object, bytes]] = {}
         self._modules_done: dict[str, bool] = {}
@@ -102,8 +103,16 @@ class History:
             self._set_state("open", 1.0)
         self._ids = {(d, p, int(la), int(q)): int(i) for i, d, p, la, q in db.execute(
             "SELECT id, device, port, lane, quantity FROM series")}
-        self._baseline_n = {(s, int(la)): int(n) for s, la, n in db.execute(
-            "SELECT serial, lane, n FROM baseline")}
+        self._baseline_n = {}
+        self._pending = {}
+        for serial, la, n, tx, bias, temp in db.execute(
+                "SELECT serial, lane, n, tx_dbm, bias_ma, temperature_c FROM baseline"):
+            key = (serial, int(la))
+            self._baseline_n[key] = int(n)
+            if n < BASELINE_POLLS:  # resume the running means where the last run left them
+                self._pending[key] = {c: (float(v) * n, int(n)) for c, v in
+                                      (("tx_dbm", tx), ("bias_ma", bias),
+                                       ("temperature_c", temp)) if v is not None}
         self._fitted = {(d, p): s for d, p, s in db.execute(
             "SELECT device, port, serial FROM fitted")}
         swept = self._state("swept_until")
@@ -210,31 +219,35 @@ class History:
                 db.execute("INSERT OR REPLACE INTO fitted VALUES (?, ?, ?, ?)",
                            (batch.device, ident.port, ident.serial, t))
                 self._fitted[(batch.device, ident.port)] = ident.serial
+        # the running means are kept in memory and written at the first poll (so a new
+        # module has a baseline at once) and when the last poll of the baseline is in
+        touched: dict[tuple[str, int], tuple[str, str]] = {}
         for o, la, q, v in zip(optic, lane, qty, value, strict=True):
             serial = batch.optics[o].serial
             col = _BASELINE_COLUMN.get(q)
             if not serial or col is None:
                 continue
-            n = self._baseline_n.get((serial, la))
-            if n is None:
-                db.execute("INSERT OR IGNORE INTO baseline (serial, lane, device, port, t, n) "
-                           "VALUES (?, ?, ?, ?, ?, 0)", (serial, la, batch.device,
-                                                         batch.optics[o].port, t))
-                n = self._baseline_n[(serial, la)] = 0
-            if n >= BASELINE_POLLS:
+            key = (serial, la)
+            if self._baseline_n.get(key, 0) >= BASELINE_POLLS:
                 continue
-            # running mean of the first polls, per quantity (each counts its own polls)
-            db.execute(f"UPDATE baseline SET {col} = coalesce({col} * ? / (? + 1), 0) "
-                       f"+ ? / (? + 1) WHERE serial = ? AND lane = ?",
-                       (n, n, v, n, serial, la))
-        seen = {(batch.optics[o].serial, la) for o, la, q in zip(optic, lane, qty, strict=True)
-                if batch.optics[o].serial and q in _BASELINE_COLUMN}
+            acc = self._pending.setdefault(key, {})
+            total, count = acc.get(col, (0.0, 0))
+            acc[col] = (total + v, count + 1)
+            touched[key] = (batch.device, batch.optics[o].port)
         done = True
-        for key in seen:
-            n = self._baseline_n[key]
-            if n < BASELINE_POLLS:
-                db.execute("UPDATE baseline SET n = n + 1 WHERE serial = ? AND lane = ?", key)
-                self._baseline_n[key] = n = n + 1
+        for key, (device, port) in touched.items():
+            n = self._baseline_n.get(key, 0) + 1
+            self._baseline_n[key] = n
+            means = {c: tot / cnt for c, (tot, cnt) in self._pending[key].items()}
+            cols = [means.get(c) for c in ("tx_dbm", "bias_ma", "temperature_c")]
+            if n == 1:
+                db.execute("INSERT OR REPLACE INTO baseline VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                           (key[0], key[1], device, port, t, n, *cols))
+            elif n >= BASELINE_POLLS:
+                db.execute("UPDATE baseline SET n = ?, tx_dbm = ?, bias_ma = ?, "
+                           "temperature_c = ? WHERE serial = ? AND lane = ?",
+                           (n, *cols, key[0], key[1]))
+                del self._pending[key]
             done = done and n >= BASELINE_POLLS
         # every module of the device has its baseline: skip this until its layout changes
         self._modules_done[batch.device] = done

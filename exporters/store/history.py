@@ -4,7 +4,7 @@ What trends, forecasts and "how fast is it moving" read. Only the quantities tha
 (Rx power, Tx power, bias) and module temperature (which bias and Tx are judged
 against) are kept, at most one sample per device every ``every_s`` seconds.
 
-Tiers: raw samples for ``raw_days``; hourly min/avg/max for ``hourly_days``; daily
+Tiers: raw samples for ``raw_days``; hourly min/avg/max for ``keep_days``; daily
 min/avg/max for ``daily_days`` (ten years by default). Each module's first-seen
 readings (by serial) live in their own table, which retention never touches.
 Roll-ups and retention run as a sweep at most every ``sweep_every_s`` of sample time,
@@ -53,7 +53,7 @@ class HistoryError(RuntimeError):
 class History:
     """Thread-safe: the poller writes, the HTTP and report code read."""
 
-    def __init__(self, path: str | Path, every_s: float = 900.0, keep_days: float = 400.0,
+    def __init__(self, path: str | Path, every_s: float = 900.0, keep_days: float = 120.0,
                  *, raw_days: float = 14.0, daily_days: float = 3650.0,
                  sweep_every_s: float = 3600.0):
         self.path = Path(path)

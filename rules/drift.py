@@ -182,13 +182,13 @@ def forecast(d: Drift, edge: float, lower: bool, now: float,
     gap = edge - d.level_now  # negative for a floor not yet reached
     if (gap >= 0.0) if lower else (gap <= 0.0):
         return Forecast(now, now, now, None)
-    toward = (lambda r: r < 0.0) if lower else (lambda r: r > 0.0)
-    if not toward(d.rate_per_day):
+    sign = -1.0 if lower else 1.0  # the direction of travel towards the edge
+    if not d.rate_per_day * sign > 0.0:
         return Forecast(None, None, None, NoForecast.MOVING_AWAY)
     fast, slow = sorted((d.low_per_day, d.high_per_day), key=abs, reverse=True)
     at = now + gap / d.rate_per_day * DAY
     earliest = now + gap / fast * DAY
-    latest = now + gap / slow * DAY if toward(slow) else None
+    latest = now + gap / slow * DAY if slow * sign > 0.0 else None
     if horizon_s is not None and at - now > horizon_s:
         return Forecast(None, earliest if earliest - now <= horizon_s else None, None,
                         NoForecast.BEYOND_HORIZON)

@@ -131,6 +131,7 @@ class LaneOutlook:
     no_forecast: str = ""  # a NoForecast word when there is no date
     last_step_at: float | None = None
     last_step_db: float | None = None
+    moving: bool = False  # the slope's interval excludes zero since the last step
 
 
 @dataclass(slots=True)
@@ -182,6 +183,7 @@ def lane_outlook(w: RxWindow, rx: Series, ctx: AdviceContext, targets: MarginTar
         target_earliest=target.earliest, target_latest=target.latest,
         no_forecast=str(target.reason) if target.reason is not None else "",
         last_step_at=step.t if step else None, last_step_db=step.jump if step else None,
+        moving=d.moving,
     )
 
 

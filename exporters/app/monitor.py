@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import math
+import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -20,9 +22,10 @@ from lightwarden.collector.entry import SharedParts
 from lightwarden.collector.readings import OpticIdentity, PollOutcome, Quantity
 from lightwarden.collector.source import PollSource
 from lightwarden.exporters.pages.view import DeviceView
+from lightwarden.exporters.prometheus.drift_metrics import DriftGauges
 from lightwarden.exporters.prometheus.exposition import Exposition
 from lightwarden.exporters.prometheus.self_metrics import SelfMetrics
-from lightwarden.exporters.store.gather import history_advice_context
+from lightwarden.exporters.store.gather import history_advice_context, lane_outlooks
 from lightwarden.exporters.store.history import History, HistoryError
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets, assess
@@ -38,6 +41,9 @@ from lightwarden.rules.windows import WindowResolver
 log = logging.getLogger("lightwarden.monitor")
 
 _AGEING = (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS)
+#: how often (poll time) the drift gauges are recomputed from history, over how many days
+DRIFT_EVERY_S = 3600.0
+DRIFT_DAYS = 90.0
 AlertSink = Callable[[list[AlertEvent]], None]
 
 
@@ -81,6 +87,10 @@ class Monitor:
         self._views: dict[str, DeviceView] = {}
         self._alerts_enabled = alerts
         self.exposition.set_alert_source(self.lifecycle.open_alerts)
+        self.drift = DriftGauges()
+        self.exposition.set_extra_source(self.drift.text)
+        self._next_drift = -math.inf
+        self._drift_busy = threading.Lock()
 
     # -- the read-only view the pages take (pages.view.MonitorView) -------------------
     @property
@@ -181,6 +191,26 @@ class Monitor:
             self.history.record(b, windows)
         except HistoryError as exc:
             log.error("%s", exc)  # monitoring goes on; the history has a gap
+        now = b.taken_at
+        if now >= self._next_drift and not self._drift_busy.locked():
+            # off the poll path: at 10^5 lanes a refresh reads and fits every lane
+            self._next_drift = now + DRIFT_EVERY_S
+            threading.Thread(target=self.refresh_drift, args=(now,), name="drift",
+                             daemon=True).start()
+
+    def refresh_drift(self, now: float) -> None:
+        """Recompute the drift and run-out gauges from history (see prometheus/drift_metrics)."""
+        history = self.history
+        if history is None:
+            return
+        with self._drift_busy:
+            try:
+                lanes = lane_outlooks(history, self.plant_with_history(), self.targets, now,
+                                      days=DRIFT_DAYS)
+            except HistoryError as exc:
+                log.error("drift gauges not refreshed: %s", exc)
+                return
+            self.drift.update(lanes, now)
 
     def _context(self, a: Assessment, now: float) -> dict[tuple[str, int, Quantity],
                                                            AdviceContext]:

@@ -9,14 +9,13 @@ import time
 from dataclasses import asdict
 
 from lightwarden.collector.readings import Quantity
-from lightwarden.exporters.store.gather import history_advice_context
+from lightwarden.exporters.store.gather import lane_outlooks
 from lightwarden.exporters.store.history import History
 from lightwarden.rules.assess import MarginTargets
 from lightwarden.rules.outlook import (
     DAY,
     PlannerReport,
     SpanOutlook,
-    lane_outlook,
     most_grown_first,
     soonest_first,
     span_outlook,
@@ -28,12 +27,7 @@ from lightwarden.rules.spanloss import engineered_loss_db
 def build_report(history: History, plant: Plant | None, targets: MarginTargets, now: float,
                  days: float = 90.0, horizon_days: float = 3650.0) -> PlannerReport:
     since = now - days * DAY
-    lanes = []
-    for w in history.rx_windows():
-        rx = history.series(w.device, w.port, w.lane, Quantity.RX_POWER, since)
-        ctx = history_advice_context(history, plant, w.device, w.port, w.lane,
-                                     Quantity.RX_POWER, now, days=days, own=rx)
-        lanes.append(lane_outlook(w, rx, ctx, targets, now, horizon_days * DAY))
+    lanes = lane_outlooks(history, plant, targets, now, days, horizon_days)
     soonest_first(lanes)
     spans: list[SpanOutlook] = []
     for sp in plant.spans if plant is not None else []:

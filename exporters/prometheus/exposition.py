@@ -502,6 +502,7 @@ class Exposition:
         self._cached_gz: tuple[int, bytes] | None = None
         self._targets = b""
         self._self: SelfMetrics | None = None
+        self._extra: Callable[[], bytes] | None = None
         self.set_margin_targets(margin_target_overload_db, margin_target_sensitivity_db)
 
     # -- input -------------------------------------------------------------------------
@@ -517,6 +518,10 @@ class Exposition:
 
     def set_alert_source(self, alerts: AlertSource | None) -> None:
         self._alerts = alerts
+
+    def set_extra_source(self, source: Callable[[], bytes] | None) -> None:
+        """Text rendered elsewhere (the drift gauges) appended to every scrape."""
+        self._extra = source
 
     def set_self_metrics(self, self_metrics: SelfMetrics | None) -> None:
         """Append the monitor's own figures (process, polls, scrape cost) to every scrape."""
@@ -652,6 +657,9 @@ class Exposition:
         alerts = self.alerts_text()
         if alerts:
             parts.append(_gz(alerts, self._gzip_level) if compressed else alerts)
+        extra = self._extra() if self._extra is not None else b""
+        if extra:
+            parts.append(_gz(extra, self._gzip_level) if compressed else extra)
         return parts
 
     def body(self) -> bytes:

@@ -44,7 +44,7 @@ def test_promtool_check_rules():
     promtool = require_binary("promtool")
     res = run([promtool, "check", "rules", str(RULES)])
     assert res.returncode == 0, res.stdout + res.stderr
-    assert "SUCCESS: 10 rules found" in res.stdout
+    assert "SUCCESS: 11 rules found" in res.stdout
 
 
 @pytest.mark.external
@@ -79,9 +79,9 @@ def test_cli_writes_valid_rules_with_custom_params(tmp_path):
 
 
 def test_cli_rejects_bad_duration_clearly(tmp_path, capsys):
-    assert main(["-o", str(tmp_path / "x.yml"), "--drift-window", "6 hours"]) == 2
+    assert main(["-o", str(tmp_path / "x.yml"), "--drift-for", "6 hours"]) == 2
     err = capsys.readouterr().err
-    assert "drift_window" in err and "'6 hours'" in err and "Traceback" not in err
+    assert "drift_for" in err and "'6 hours'" in err and "Traceback" not in err
     assert not (tmp_path / "x.yml").exists()
 
 

@@ -1,0 +1,95 @@
+"""Drift and run-out gauges: the lab's healthy lanes export none, its wearing laser's
+receiver exports its slope and forecast; the text parses as Prometheus exposition.
+
+lab.yaml story laser_wear: qm-dist-a sfp5's Tx falls 0.06 dB/day, received at qm-core-a
+sfp5. Parsing: prometheus_client's text parser (a general reference implementation).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+import yaml
+from prometheus_client.parser import text_string_to_metric_families
+
+from lightwarden.collector.readings import PollOutcome
+from lightwarden.exporters.app.config import parse_config
+from lightwarden.exporters.app.wiring import build_monitor
+from lightwarden.exporters.prometheus.drift_metrics import render_drift
+from lightwarden.rules.outlook import LaneOutlook
+
+WALL_NOW = 1_800_000_000.0
+
+
+@pytest.fixture(scope="module")
+def lab_monitor(tmp_path_factory: pytest.TempPathFactory):
+    from lightwarden.fixtures.lab.backfill import backfill, lab_batch
+    from lightwarden.fixtures.lab.model import Lab
+    from lightwarden.fixtures.lab.server import lab_plant
+
+    tmp = tmp_path_factory.mktemp("lab")
+    lab = Lab.load()
+    cfg = parse_config(yaml.safe_dump({
+        "plant": lab_plant(lab),
+        "devices": [{"name": d, "host": "127.0.0.1", "credentials": "c"} for d in lab.devices],
+        "credentials": {"c": {"snmp_v2c": {"community": {"env": "UNUSED"}}}},
+        "history": {"path": str(Path(tmp) / "h.sqlite")},
+    }), "lab")
+    monitor = build_monitor(cfg, base_dir=Path(tmp), alerts=False)
+    history = monitor.open_history()
+    assert history is not None
+    backfill(lab, lambda b: history.record(b, force=True), lab.epoch, WALL_NOW, days=40)
+    monitor._next_drift = float("inf")  # the test refreshes by hand, not in a thread
+    for device in lab.devices:
+        monitor.handle(PollOutcome(device, WALL_NOW, 0.1,
+                                   lab_batch(lab, device, lab.epoch, WALL_NOW)))
+    monitor.refresh_drift(WALL_NOW)
+    yield monitor
+    monitor.close()
+
+
+def _samples(text: str) -> dict[str, dict[tuple[str, str, str], float]]:
+    out: dict[str, dict[tuple[str, str, str], float]] = {}
+    for fam in text_string_to_metric_families(text):
+        for s in fam.samples:
+            key = (s.labels.get("device", ""), s.labels.get("port", ""), s.labels.get("lane", ""))
+            out.setdefault(s.name, {})[key] = s.value
+    return out
+
+
+def test_only_the_wearing_lane_carries_drift_and_run_out(lab_monitor):
+    got = _samples(lab_monitor.exposition.body().decode())
+    drift = got["lightwarden_rx_drift_db_per_day"]
+    assert list(drift) == [("qm-core-a", "sfp5", "1")]  # no healthy lane has a sample
+    assert drift[("qm-core-a", "sfp5", "1")] == pytest.approx(-0.06, abs=0.006)
+    low = got["lightwarden_rx_drift_low_db_per_day"][("qm-core-a", "sfp5", "1")]
+    high = got["lightwarden_rx_drift_high_db_per_day"][("qm-core-a", "sfp5", "1")]
+    assert low <= drift[("qm-core-a", "sfp5", "1")] <= high < 0.0
+    to_target = got["lightwarden_rx_days_to_target"][("qm-core-a", "sfp5", "1")]
+    to_edge = got["lightwarden_rx_days_to_edge"][("qm-core-a", "sfp5", "1")]
+    # module Rx low alarm -18 dBm (lab.yaml), 3 dB target (common practice): at -0.06
+    # dB/day the 3 dB between target and edge take 50 days
+    assert to_edge - to_target == pytest.approx(3.0 / 0.06, rel=0.1)
+    assert got["lightwarden_rx_drift_updated_timestamp_seconds"][("", "", "")] == WALL_NOW
+
+
+def _lane(**kw: object) -> LaneOutlook:
+    base: dict[str, object] = dict(
+        device="qm-a", port="sfp1", lane=1, pmd="10GBASE-LR", rx_power_dbm=-5.0,
+        sensitivity_dbm=-14.4, overload_dbm=0.5, window_source="pmd-table",
+        rate_db_per_day=None, rate_low=None, rate_high=None, samples=100,
+        target_lost_at=None, edge_reached_at=None, laser_worn=False, laser_note="")
+    base.update(kw)
+    return LaneOutlook(**base)  # type: ignore[arg-type]  # the fields vary in type
+
+
+def test_render_leaves_out_what_is_not_believed():
+    flat = _lane(rate_db_per_day=-0.0001, rate_low=-0.001, rate_high=0.001, moving=False)
+    text = render_drift([flat], WALL_NOW).decode()
+    assert "lightwarden_rx_drift_db_per_day{" not in text
+    past = _lane(rate_db_per_day=-0.2, rate_low=-0.3, rate_high=-0.1, moving=True,
+                 target_lost_at=WALL_NOW - 86400.0, edge_reached_at=WALL_NOW + 86400.0)
+    got = _samples(render_drift([past], WALL_NOW).decode())
+    assert got["lightwarden_rx_days_to_target"][("qm-a", "sfp1", "1")] == 0.0  # already out
+    assert got["lightwarden_rx_days_to_edge"][("qm-a", "sfp1", "1")] == pytest.approx(1.0)

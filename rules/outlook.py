@@ -8,7 +8,7 @@ disagree.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -132,17 +132,21 @@ class LaneOutlook:
     last_step_at: float | None = None
     last_step_db: float | None = None
     moving: bool = False  # the slope's interval excludes zero since the last step
+    #: what is wrong right now: "dark" (no light at the last poll), "overloaded",
+    #: "below sensitivity", or "" (inside the window)
+    now_state: str = ""
 
 
 @dataclass(slots=True)
 class SpanOutlook:
     span: str  # "A port -> B port"
     engineered_db: float
-    measured_db: float | None
-    excess_db: float | None
+    measured_db: float | None  # now: median of the last GROWTH_SAMPLES paired samples
+    excess_db: float | None  # measured minus engineered
     verdict: str
-    growth_db: float | None
+    growth_db: float | None  # measured minus first, so first + growth = measured
     samples: int
+    first_db: float | None = None  # median of the first GROWTH_SAMPLES paired samples
 
 
 @dataclass(slots=True)
@@ -151,6 +155,7 @@ class PlannerReport:
     days: float
     lanes: list[LaneOutlook]
     spans: list[SpanOutlook]
+    lasers: list[LaserOutlook] = field(default_factory=list)
 
 
 def lane_outlook(w: RxWindow, rx: Series, ctx: AdviceContext, targets: MarginTargets,
@@ -183,8 +188,39 @@ def lane_outlook(w: RxWindow, rx: Series, ctx: AdviceContext, targets: MarginTar
         target_earliest=target.earliest, target_latest=target.latest,
         no_forecast=str(target.reason) if target.reason is not None else "",
         last_step_at=step.t if step else None, last_step_db=step.jump if step else None,
-        moving=d.moving,
+        moving=d.moving, now_state=_now_state(w, rx),
     )
+
+
+def _now_state(w: RxWindow, rx: Series) -> str:
+    # history keeps only readings with light; a window written at the last kept poll with
+    # no Rx sample at that time means the receiver saw no light then
+    if len(rx) == 0 or float(rx.times[-1]) < w.t - 1.0:
+        return "dark"
+    last = float(rx.values[-1])
+    if w.overload is not None and last > w.overload:
+        return "overloaded"
+    if w.sensitivity is not None and last < w.sensitivity:
+        return "below sensitivity"
+    return ""
+
+
+@dataclass(slots=True)
+class LaserOutlook:
+    """A transmitter whose laser shows wear, named so it can be replaced, with evidence."""
+
+    device: str
+    port: str
+    lane: int
+    serial: str  # "" when the history never saw one
+    reason: str  # the wear verdict's sentence
+    tx_drop_db: float | None
+    bias_rise: float | None
+    since: float | None  # the baseline it is judged against (first seen)
+    tx_rate_db_per_day: float | None  # Tx power's robust slope since its last step
+    receiver: str  # "device port" of the far receiver, "" when not known
+    receiver_target_lost_at: float | None
+    temperature_note: str = ""
 
 
 def _history_note(d: Drift, samples: int) -> str:
@@ -196,20 +232,34 @@ def _history_note(d: Drift, samples: int) -> str:
 
 
 def span_outlook(label: str, budget_db: float, tx: Series, rx: Series) -> SpanOutlook:
-    """One direction of a span: measured loss against its budget, and its growth."""
+    """One direction of a span: its loss now against its budget, and its growth.
+
+    "Now" is the median of the last few paired samples, the same figure growth ends on,
+    so a span's first loss, growth and present loss always add up (a median over the
+    whole window would mix a fault that has since been cleared into "measured").
+    """
     losses = span_losses(tx, rx)
-    v = judge_span_loss(losses, budget_db)
+    v = judge_span_loss(losses[-GROWTH_SAMPLES:], budget_db)
+    first = (float(np.median(losses[:GROWTH_SAMPLES]))
+             if losses.size >= 2 * GROWTH_SAMPLES else None)
+    growth = _growth(losses)
     return SpanOutlook(
         span=label, engineered_db=budget_db,
         measured_db=None if math.isnan(v.measured_db) else v.measured_db,
         excess_db=None if math.isnan(v.excess_db) else v.excess_db,
-        verdict=v.verdict, growth_db=_growth(losses), samples=v.samples)
+        verdict=v.verdict, growth_db=growth, samples=int(losses.size), first_db=first)
+
+
+_NOW_RANK = {"dark": 0, "overloaded": 1, "below sensitivity": 2}
 
 
 def soonest_first(lanes: list[LaneOutlook]) -> None:
-    """Soonest trouble first; lanes with no forecast after, fastest falling first."""
-    lanes.sort(key=lambda o: (o.target_lost_at is None, o.target_lost_at or 0.0,
-                              o.rate_db_per_day if o.rate_db_per_day is not None else 0.0))
+    """What is wrong now first (dark, overloaded, below sensitivity), then the soonest
+    forecast loss of the margin target, then lanes with no forecast, fastest moving first."""
+    lanes.sort(key=lambda o: (_NOW_RANK.get(o.now_state, 3), o.target_lost_at is None,
+                              o.target_lost_at or 0.0,
+                              -abs(o.rate_db_per_day) if o.moving and o.rate_db_per_day
+                              is not None else 0.0))
 
 
 def most_grown_first(spans: list[SpanOutlook]) -> None:

@@ -11,6 +11,7 @@ import argparse
 import asyncio
 import json
 import logging
+import math
 import os
 import sys
 import time
@@ -280,13 +281,38 @@ def cmd_report(args: argparse.Namespace) -> int:
     try:
         report = build_report(history, monitor.plant_with_history(), monitor.targets,
                               time.time(), days=args.days)
+        if args.output:
+            from lightwarden.exporters.pages.report_html import write_report_dir
+
+            try:
+                written = write_report_dir(report, history, Path(args.output),
+                                           (monitor.targets.overload_db,
+                                            monitor.targets.sensitivity_db))
+            except OSError as exc:
+                raise ConfigError(f"report -o {args.output}: {exc.strerror or exc}") from None
+            print(f"wrote {', '.join(str(p) for p in written)}", file=sys.stderr)
     finally:
         monitor.close()
-    if args.json:
-        print(json.dumps(report_json(report), indent=2))
-    else:
-        print(render_report(report))
+    text = json.dumps(report_json(report), indent=2) if args.json else render_report(report)
+    try:
+        sys.stdout.write(text + "\n")
+        sys.stdout.flush()
+    except BrokenPipeError:
+        # the reader (head, less) has gone: stop quietly, and keep the interpreter's own
+        # flush at exit from raising again on the closed pipe
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
     return EXIT_OK
+
+
+def _days(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number of days") from None
+    if not (math.isfinite(v) and v > 0):
+        raise argparse.ArgumentTypeError(f"{text!r}: days must be a positive number")
+    return v
 
 
 def cmd_decode(args: argparse.Namespace) -> int:
@@ -380,8 +406,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     rep = sub.add_parser("report", help="planners' report: ageing links, forecasts, span loss")
     rep.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
-    rep.add_argument("--days", type=float, default=90.0, help="history to fit (default 90)")
+    rep.add_argument("--days", type=_days, default=90.0, help="history to fit (default 90)")
     rep.add_argument("--json", action="store_true")
+    rep.add_argument("-o", "--output", metavar="DIR", default=None,
+                     help="also write report.html (with charts) and report.csv here")
     rep.set_defaults(func=cmd_report)
 
     dec = sub.add_parser("decode", help="decode a module memory map (binary or hex dump)")

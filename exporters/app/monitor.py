@@ -147,9 +147,10 @@ class Monitor:
         return self.history
 
     def close(self) -> None:
-        if self.history is not None:
-            self.history.close()
-            self.history = None
+        with self._drift_busy:  # let a drift refresh in flight finish first
+            if self.history is not None:
+                self.history.close()
+                self.history = None
         for s in self.sources:
             s.close()
         self.parts.shared.close()
@@ -200,10 +201,10 @@ class Monitor:
 
     def refresh_drift(self, now: float) -> None:
         """Recompute the drift and run-out gauges from history (see prometheus/drift_metrics)."""
-        history = self.history
-        if history is None:
-            return
         with self._drift_busy:
+            history = self.history
+            if history is None:
+                return
             try:
                 lanes = lane_outlooks(history, self.plant_with_history(), self.targets, now,
                                       days=DRIFT_DAYS)

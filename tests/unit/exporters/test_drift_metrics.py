@@ -7,46 +7,13 @@ sfp5. Parsing: prometheus_client's text parser (a general reference implementati
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import pytest
-import yaml
 from prometheus_client.parser import text_string_to_metric_families
+from support.lab_history import WALL_NOW
 
-from lightwarden.collector.readings import PollOutcome
-from lightwarden.exporters.app.config import parse_config
-from lightwarden.exporters.app.wiring import build_monitor
+from lightwarden.exporters.app.monitor import Monitor
 from lightwarden.exporters.prometheus.drift_metrics import render_drift
 from lightwarden.rules.outlook import LaneOutlook
-
-WALL_NOW = 1_800_000_000.0
-
-
-@pytest.fixture(scope="module")
-def lab_monitor(tmp_path_factory: pytest.TempPathFactory):
-    from lightwarden.fixtures.lab.backfill import backfill, lab_batch
-    from lightwarden.fixtures.lab.model import Lab
-    from lightwarden.fixtures.lab.server import lab_plant
-
-    tmp = tmp_path_factory.mktemp("lab")
-    lab = Lab.load()
-    cfg = parse_config(yaml.safe_dump({
-        "plant": lab_plant(lab),
-        "devices": [{"name": d, "host": "127.0.0.1", "credentials": "c"} for d in lab.devices],
-        "credentials": {"c": {"snmp_v2c": {"community": {"env": "UNUSED"}}}},
-        "history": {"path": str(Path(tmp) / "h.sqlite")},
-    }), "lab")
-    monitor = build_monitor(cfg, base_dir=Path(tmp), alerts=False)
-    history = monitor.open_history()
-    assert history is not None
-    backfill(lab, lambda b: history.record(b, force=True), lab.epoch, WALL_NOW, days=40)
-    monitor._next_drift = float("inf")  # the test refreshes by hand, not in a thread
-    for device in lab.devices:
-        monitor.handle(PollOutcome(device, WALL_NOW, 0.1,
-                                   lab_batch(lab, device, lab.epoch, WALL_NOW)))
-    monitor.refresh_drift(WALL_NOW)
-    yield monitor
-    monitor.close()
 
 
 def _samples(text: str) -> dict[str, dict[tuple[str, str, str], float]]:
@@ -58,7 +25,7 @@ def _samples(text: str) -> dict[str, dict[tuple[str, str, str], float]]:
     return out
 
 
-def test_only_the_wearing_lane_carries_drift_and_run_out(lab_monitor):
+def test_only_the_wearing_lane_carries_drift_and_run_out(lab_monitor: Monitor):
     got = _samples(lab_monitor.exposition.body().decode())
     drift = got["lightwarden_rx_drift_db_per_day"]
     assert list(drift) == [("qm-core-a", "sfp5", "1")]  # no healthy lane has a sample

@@ -125,3 +125,14 @@ def test_a_closed_pipe_ends_quietly(lab_monitor: Monitor, tmp_path: Path):
     err = proc.stderr.read().decode()
     assert proc.wait(timeout=60) == 0
     assert "Traceback" not in err and "BrokenPipe" not in err
+
+
+def test_the_status_server_serves_the_report_with_charts(lab_monitor: Monitor):
+    from lightwarden.exporters.pages.status import StatusPage
+
+    page = StatusPage(lab_monitor)
+    code, ctype, body = page.report_html(None)
+    assert code == 200 and ctype.startswith("text/html")
+    assert b"<svg " in body and b"qm-dist-a sfp5 lane 1" in body
+    code, _, text = page.report_text(None)
+    assert code == 200 and b"Lasers to replace (1)" in text

@@ -9,12 +9,14 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import contextlib
 import json
 import logging
 import math
 import os
 import sys
 import time
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -279,8 +281,9 @@ def cmd_report(args: argparse.Namespace) -> int:
     history = monitor.open_history()
     assert history is not None
     try:
-        report = build_report(history, monitor.plant_with_history(), monitor.targets,
-                              time.time(), days=args.days)
+        with _progress_bar("reading history") as progress:
+            report = build_report(history, monitor.plant_with_history(), monitor.targets,
+                                  time.time(), days=args.days, progress=progress)
         if args.output:
             from lightwarden.exporters.pages.report_html import write_report_dir
 
@@ -303,6 +306,24 @@ def cmd_report(args: argparse.Namespace) -> int:
         devnull = os.open(os.devnull, os.O_WRONLY)
         os.dup2(devnull, sys.stdout.fileno())
     return EXIT_OK
+
+
+@contextlib.contextmanager
+def _progress_bar(what: str) -> Iterator[Callable[[int, int], None] | None]:
+    """A transient progress bar on a terminal's stderr (rich); nothing when not a terminal."""
+    if not sys.stderr.isatty():
+        yield None
+        return
+    from rich.console import Console
+    from rich.progress import Progress
+
+    with Progress(console=Console(stderr=True), transient=True) as bar:
+        task = bar.add_task(what, total=None)
+
+        def step(done: int, total: int) -> None:
+            bar.update(task, completed=done, total=total)
+
+        yield step
 
 
 def _days(text: str) -> float:

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 import time
+from collections.abc import Callable
 from dataclasses import asdict
 
 from lightwarden.collector.readings import Quantity
@@ -33,9 +34,11 @@ from lightwarden.rules.spanloss import engineered_loss_db
 
 
 def build_report(history: History, plant: Plant | None, targets: MarginTargets, now: float,
-                 days: float = 90.0, horizon_days: float = 3650.0) -> PlannerReport:
+                 days: float = 90.0, horizon_days: float = 3650.0,
+                 progress: Callable[[int, int], None] | None = None) -> PlannerReport:
+    """``progress(done, total)`` is told of each receiver lane read (for a progress bar)."""
     since = now - days * DAY
-    lanes = lane_outlooks(history, plant, targets, now, days, horizon_days)
+    lanes = lane_outlooks(history, plant, targets, now, days, horizon_days, progress)
     soonest_first(lanes)
     spans: list[SpanOutlook] = []
     for sp in plant.spans if plant is not None else []:

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from lightwarden.collector.readings import Quantity
 from lightwarden.exporters.store.history import History
 from lightwarden.rules.advice import AdviceContext
@@ -35,11 +37,18 @@ def history_advice_context(history: History, plant: Plant | None, device: str, p
 
 
 def lane_outlooks(history: History, plant: Plant | None, targets: MarginTargets, now: float,
-                  days: float = 90.0, horizon_days: float = 3650.0) -> list[LaneOutlook]:
-    """Every receiver lane the history has a window for, with its drift and forecasts."""
+                  days: float = 90.0, horizon_days: float = 3650.0,
+                  progress: Callable[[int, int], None] | None = None) -> list[LaneOutlook]:
+    """Every receiver lane the history has a window for, with its drift and forecasts.
+
+    ``progress(done, total)`` is called after each lane (for a progress bar).
+    """
     since = now - days * DAY
     out = []
-    for w in history.rx_windows():
+    windows = history.rx_windows()
+    for i, w in enumerate(windows):
+        if progress is not None:
+            progress(i, len(windows))
         rx = history.series(w.device, w.port, w.lane, Quantity.RX_POWER, since)
         ctx = history_advice_context(history, plant, w.device, w.port, w.lane,
                                      Quantity.RX_POWER, now, days=days, own=rx)

@@ -136,3 +136,21 @@ def test_the_status_server_serves_the_report_with_charts(lab_monitor: Monitor):
     assert b"<svg " in body and b"qm-dist-a sfp5 lane 1" in body
     code, _, text = page.report_text(None)
     assert code == 200 and b"Lasers to replace (1)" in text
+
+
+def test_a_terminal_gets_a_progress_bar_and_the_report_is_unchanged(
+        lab_monitor: Monitor, tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+        capsys: pytest.CaptureFixture[str]):
+    history = lab_monitor.history
+    assert history is not None
+    site = _site(tmp_path, history.path)
+    assert main(["report", "-c", str(site), "--json"]) == 0
+    plain = capsys.readouterr()
+    assert plain.err == ""  # not a terminal: no bar
+    monkeypatch.setattr(sys.stderr, "isatty", lambda: True)
+    assert main(["report", "-c", str(site), "--json"]) == 0
+    shown = capsys.readouterr()
+    assert "reading history" in shown.err  # the bar went to stderr
+    a, b = json.loads(shown.out), json.loads(plain.out)
+    assert [(o["device"], o["port"]) for o in a["lanes"]] == [
+        (o["device"], o["port"]) for o in b["lanes"]]

@@ -336,6 +336,33 @@ def _days(text: str) -> float:
     return v
 
 
+def cmd_history_check(args: argparse.Namespace) -> int:
+    """The history file's full integrity check (PRAGMA integrity_check) and row counts."""
+    from lightwarden.exporters.store.history import History, HistoryError
+
+    cfg, base = _load(args.config)
+    path = Path(cfg.history.path)
+    if not path.is_absolute():
+        path = base / path
+    if not path.exists():
+        raise ConfigError(f"history.path {path}: no such file")
+    try:
+        history = History(path)
+    except HistoryError as exc:
+        print(f"lightwarden: {exc}", file=sys.stderr)
+        return EXIT_FINDINGS
+    try:
+        problems = history.check()
+        counts = history.counts()
+    finally:
+        history.close()
+    if problems:
+        print(f"{path}: integrity_check found:", *problems[:20], sep="\n  ", file=sys.stderr)
+        return EXIT_FINDINGS
+    print(f"{path}: ok; " + ", ".join(f"{k} {v}" for k, v in counts.items()))
+    return EXIT_OK
+
+
 def cmd_decode(args: argparse.Namespace) -> int:
     from lightwarden.collector.eeprom.command import decode_command
 
@@ -432,6 +459,12 @@ def build_parser() -> argparse.ArgumentParser:
     rep.add_argument("-o", "--output", metavar="DIR", default=None,
                      help="also write report.html (with charts) and report.csv here")
     rep.set_defaults(func=cmd_report)
+
+    hist = sub.add_parser("history", help="the reading history file")
+    hist_sub = hist.add_subparsers(dest="action", required=True)
+    chk = hist_sub.add_parser("check", help="full integrity check of the history file")
+    chk.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    chk.set_defaults(func=cmd_history_check)
 
     dec = sub.add_parser("decode", help="decode a module memory map (binary or hex dump)")
     dec.add_argument("file", metavar="FILE")

@@ -224,3 +224,26 @@ def test_kill_9_during_writes_leaves_a_sound_store_that_lost_at_most_the_poll_in
     assert h.counts()["raw"] % (48 * 4) == 0  # no poll is half written
     assert polls >= done + 1  # every poll it reported done is there (one more may be)
     h.close()
+
+
+def test_history_check_command(tmp_path: Path, capsys: pytest.CaptureFixture[str]):
+    import yaml
+
+    from lightwarden.exporters.app.cli import main
+
+    path = tmp_path / "h.sqlite"
+    h = History(path)
+    h.record(_batch(T0, -5.0, -2.0, 30.0, 40.0), force=True)
+    h.close()
+    site = tmp_path / "site.yaml"
+    site.write_text(yaml.safe_dump({"history": {"path": str(path)}}))
+    assert main(["history", "check", "-c", str(site)]) == 0
+    assert "ok; series 4" in capsys.readouterr().out
+    # the page headers after the first overwritten: the check (or the open) reports it
+    data = bytearray(path.read_bytes())
+    for page in range(4096, len(data), 4096):
+        data[page:page + 8] = b"\xff" * 8
+    path.write_bytes(bytes(data))
+    assert main(["history", "check", "-c", str(site)]) == 1
+    err = capsys.readouterr().err
+    assert "h.sqlite" in err and "Traceback" not in err

@@ -7,7 +7,9 @@ The pipeline, on finite, time-ascending samples:
    (longer spans), since Theil–Sen costs O(n²) and months of wear are seen in days;
 3. steps (connector, patch, swap) are found; only the segment after the last one is
    used, because a level that jumped says nothing about the slope after it;
-4. Theil–Sen slope with Sen's interval on that segment (rules/theilsen.py);
+4. Theil–Sen slope with Sen's interval on that segment (rules/theilsen.py); when the
+   last ``fit_days`` (30) alone give a slope whose interval leaves out the segment's,
+   the pace has changed (wear has an onset, then speeds up) and the recent line is used;
 5. a forecast is given only when the interval excludes zero and the segment is long
    enough, with the earliest and latest dates the interval allows; otherwise a reason.
 
@@ -62,6 +64,7 @@ class DriftLimits:
     noisy_sigma: float = 1.0  # robust σ of residuals above which "no slope" means noisy
     confidence: float = 0.95
     daily_after_days: float = 14.0  # spans longer than this are judged on daily points
+    fit_days: float = 30.0  # the recent stretch checked for a change of pace
     steps: StepLimits = field(default_factory=lambda: DEFAULT_STEP_LIMITS)
 
 
@@ -76,9 +79,11 @@ class Drift:
     low_per_day: float | None  # the slope's confidence interval
     high_per_day: float | None
     level_now: float | None  # the line's value at ``now``
+    level_se: float  # standard error of the line's level (robust σ of the points / √n)
     points: int  # points the slope used (after binning)
     resolution_s: float  # HOUR or DAY: the bin width the slope was judged on
-    since: float | None  # start of the segment used (the last step, or the first point)
+    since: float | None  # start of the stretch used (the last step, the first point, or
+    # the start of the recent stretch when the pace changed)
     steps: tuple[Step, ...]
     glitches: int  # samples left out by the Hampel filter
     noise: float  # robust σ of the residuals about the line (value's unit)
@@ -146,18 +151,33 @@ def drift(times: np.ndarray, values: np.ndarray, now: float,
     noise = noise_sigma(v)  # of the readings themselves, not of the averaged points
     seg_t = (bt - origin) / DAY
     fit = theil_sen(seg_t, bv, limits.confidence) if bt.size >= 2 else None
+    if fit is not None and seg_span > limits.fit_days * DAY:
+        # wear has an onset and then speeds up: when the last fit_days alone give a slope
+        # whose interval leaves out the whole segment's, the pace has changed and the
+        # recent line is the one to forecast with
+        recent = bt >= bt[-1] - limits.fit_days * DAY
+        rfit = theil_sen(seg_t[recent], bv[recent], limits.confidence)
+        if rfit is not None and int(recent.sum()) >= limits.min_points and not (
+                rfit.low <= fit.slope <= rfit.high):
+            fit, bt, bv, seg_t = rfit, bt[recent], bv[recent], seg_t[recent]
+            since = float(t[t >= bt[0] - width / 2][0])
+            seg_span = float(t[-1] - since)
     stepped = NoForecast.JUST_STEPPED if steps else NoForecast.TOO_SHORT
+    bv_fit = bv
     if fit is None:
-        return Drift(None, None, None, None, int(bt.size), width, since, steps, glitches,
-                     noise, stepped)
+        return Drift(None, None, None, None, 0.0, int(bt.size), width, since, steps,
+                     glitches, noise, stepped)
     reason: NoForecast | None = None
     if bt.size < limits.min_points or seg_span < limits.min_span_s:
         reason = stepped
     elif not fit.excludes_zero:
         reason = NoForecast.NOISY if noise > limits.noisy_sigma else NoForecast.FLAT
+    resid = bv_fit - (fit.intercept + fit.slope * seg_t)
+    spread = 1.4826 * float(np.median(np.abs(resid - np.median(resid))))
     return Drift(
         rate_per_day=fit.slope, low_per_day=fit.low, high_per_day=fit.high,
-        level_now=fit.value_at((now - origin) / DAY), points=int(bt.size),
+        level_now=fit.value_at((now - origin) / DAY),
+        level_se=spread / math.sqrt(max(int(bt.size), 1)), points=int(bt.size),
         resolution_s=width, since=since, steps=steps, glitches=glitches, noise=noise,
         reason=reason)
 
@@ -168,9 +188,9 @@ def forecast(d: Drift, edge: float, lower: bool, now: float,
 
     ``lower`` says the edge is a floor (sensitivity, a low warning: reached by falling);
     otherwise it is a ceiling (overload: reached by rising). A line already at or past
-    the edge gives ``now``. The interval takes the slope's two confidence ends through
-    the same present level; the level's own uncertainty (the noise about the line over
-    √n) is smaller than that for any series long enough to forecast, and is not added.
+    the edge gives ``now``. The interval takes the slope's two confidence ends, and the
+    present level moved by its own 95 % uncertainty (1.96 standard errors) towards and
+    away from the edge: with a tight slope the level's error is what is left.
     """
     if d.reason is not None:
         return Forecast(None, None, None, d.reason)
@@ -187,8 +207,10 @@ def forecast(d: Drift, edge: float, lower: bool, now: float,
         return Forecast(None, None, None, NoForecast.MOVING_AWAY)
     fast, slow = sorted((d.low_per_day, d.high_per_day), key=abs, reverse=True)
     at = now + gap / d.rate_per_day * DAY
-    earliest = now + gap / fast * DAY
-    latest = now + gap / slow * DAY if slow * sign > 0.0 else None
+    slack = 1.96 * d.level_se * sign  # gap is negative for a floor, positive for a ceiling
+    near_gap = gap - slack if abs(gap) > abs(slack) else 0.0
+    earliest = now + near_gap / fast * DAY
+    latest = now + (gap + slack) / slow * DAY if slow * sign > 0.0 else None
     if horizon_s is not None and at - now > horizon_s:
         return Forecast(None, earliest if earliest - now <= horizon_s else None, None,
                         NoForecast.BEYOND_HORIZON)

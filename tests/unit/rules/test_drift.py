@@ -146,3 +146,32 @@ def test_hampel_marks_single_glitches_but_not_a_step():
     assert list(np.flatnonzero(marked)) == [10]
     steps = find_steps(np.arange(40.0)[~marked], v[~marked])
     assert [s.index for s in steps] == [19]  # 20th kept sample is the first at -7
+
+
+def test_wear_that_began_partway_is_forecast_from_its_own_pace():
+    # 60 quiet days, then the laser starts to wear: -0.06 dB/day for the last 30 days
+    # (the lab's laser_wear story). A line through all 90 days would say about -0.03.
+    rng = np.random.default_rng(12)
+    v = -5.0 - 0.06 * np.maximum(DAYS - 60.0, 0.0) + rng.normal(0.0, 0.05, DAYS.size)
+    d = drift(QUARTER, v, NOW)
+    assert d.steps == () and d.reason is None
+    assert d.low_per_day <= -0.06 <= d.high_per_day
+    assert d.since >= T0 + 59 * DAY
+    # -5 - 0.06 * 30 = -6.8 dBm now; -9.8 dBm is 50 days on. The recent stretch still
+    # holds the onset's last quiet day, so the date is judged to a day, not by the interval
+    f = forecast(d, -9.8, lower=True, now=NOW)
+    assert f.earliest <= f.at <= f.latest
+    assert f.at == pytest.approx(NOW + 50 * DAY, abs=DAY)
+
+
+def test_the_interval_holds_the_true_slope_about_as_often_as_it_says():
+    # source: the 95 % confidence level itself (Sen 1968): over many noisy series the
+    # interval should miss the true slope about one time in twenty
+    hits = 0
+    trials = 60
+    for seed in range(trials):
+        rng = np.random.default_rng(100 + seed)
+        v = -5.0 - 0.02 * DAYS + rng.normal(0.0, 0.05, DAYS.size)
+        d = drift(QUARTER, v, NOW)
+        hits += d.low_per_day <= -0.02 <= d.high_per_day
+    assert hits / trials >= 0.85

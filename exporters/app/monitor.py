@@ -44,6 +44,9 @@ _AGEING = (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS)
 #: how often (poll time) the drift gauges are recomputed from history, over how many days
 DRIFT_EVERY_S = 3600.0
 DRIFT_DAYS = 90.0
+#: devices first recorded since the last refresh bring the next one forward to this long
+#: after it (the first round of polls at start-up, a device added by a reload)
+DRIFT_SETTLE_S = 30.0
 AlertSink = Callable[[list[AlertEvent]], None]
 
 
@@ -90,6 +93,9 @@ class Monitor:
         self.drift = DriftGauges()
         self.exposition.set_extra_source(self.drift.text)
         self._next_drift = -math.inf
+        self._last_drift = -math.inf
+        self._drift_devices: set[str] = set()
+        self._drift_stale = False
         self._drift_busy = threading.Lock()
 
     # -- the read-only view the pages take (pages.view.MonitorView) -------------------
@@ -193,9 +199,16 @@ class Monitor:
         except HistoryError as exc:
             log.error("%s", exc)  # monitoring goes on; the history has a gap
         now = b.taken_at
-        if now >= self._next_drift and not self._drift_busy.locked():
+        if b.device not in self._drift_devices:  # a device the gauges have not seen yet
+            self._drift_devices.add(b.device)
+            self._drift_stale = True
+        due = now >= self._next_drift or (
+            self._drift_stale and now - self._last_drift >= DRIFT_SETTLE_S)
+        if due and not self._drift_busy.locked():
             # off the poll path: at 10^5 lanes a refresh reads and fits every lane
             self._next_drift = now + DRIFT_EVERY_S
+            self._last_drift = now
+            self._drift_stale = False
             threading.Thread(target=self.refresh_drift, args=(now,), name="drift",
                              daemon=True).start()
 

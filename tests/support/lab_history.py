@@ -35,7 +35,8 @@ def lab_monitor_with_history(tmp: Path) -> Iterator[Monitor]:
     history = monitor.open_history()
     assert history is not None
     backfill(lab, lambda b: history.record(b, force=True), lab.epoch, WALL_NOW, days=40)
-    monitor._next_drift = float("inf")  # tests refresh by hand, not in a thread
+    # tests refresh by hand, not in a thread
+    monitor._next_drift = monitor._last_drift = float("inf")
     for device in lab.devices:
         monitor.handle(PollOutcome(device, WALL_NOW, 0.1,
                                    lab_batch(lab, device, lab.epoch, WALL_NOW)))

@@ -36,6 +36,8 @@ from lightwarden.rules.theilsen import theil_sen
 
 DAY = 86_400.0
 HOUR = 3_600.0
+#: at most this many points go to Theil–Sen (half a million pairs)
+MAX_BINS = 1000
 
 
 class NoForecast(StrEnum):
@@ -147,6 +149,8 @@ def drift(times: np.ndarray, values: np.ndarray, now: float,
         t, v = t[keep], v[keep]
     seg_span = float(t[-1] - t[0]) if t.size else 0.0
     width = DAY if seg_span > limits.daily_after_days * DAY else HOUR
+    if seg_span / width > MAX_BINS:  # years of history: wider bins keep Theil–Sen's pairs few
+        width = DAY * math.ceil(seg_span / DAY / MAX_BINS)
     bt, bv, _ = _bin(t, v, width)
     noise = noise_sigma(v)  # of the readings themselves, not of the averaged points
     seg_t = (bt - origin) / DAY
@@ -163,7 +167,6 @@ def drift(times: np.ndarray, values: np.ndarray, now: float,
             since = float(t[t >= bt[0] - width / 2][0])
             seg_span = float(t[-1] - since)
     stepped = NoForecast.JUST_STEPPED if steps else NoForecast.TOO_SHORT
-    bv_fit = bv
     if fit is None:
         return Drift(None, None, None, None, 0.0, int(bt.size), width, since, steps,
                      glitches, noise, stepped)
@@ -172,7 +175,7 @@ def drift(times: np.ndarray, values: np.ndarray, now: float,
         reason = stepped
     elif not fit.excludes_zero:
         reason = NoForecast.NOISY if noise > limits.noisy_sigma else NoForecast.FLAT
-    resid = bv_fit - (fit.intercept + fit.slope * seg_t)
+    resid = bv - (fit.intercept + fit.slope * seg_t)
     spread = 1.4826 * float(np.median(np.abs(resid - np.median(resid))))
     return Drift(
         rate_per_day=fit.slope, low_per_day=fit.low, high_per_day=fit.high,

@@ -175,3 +175,11 @@ def test_the_interval_holds_the_true_slope_about_as_often_as_it_says():
         d = drift(QUARTER, v, NOW)
         hits += d.low_per_day <= -0.02 <= d.high_per_day
     assert hits / trials >= 0.85
+
+
+def test_years_of_history_are_binned_wider_not_refused():
+    t = T0 + np.arange(0.0, 3 * 365 * DAY, 6 * 3600.0)  # three years at 6-hourly samples
+    v = -5.0 - 0.002 * (t - T0) / DAY
+    d = drift(t, v, float(t[-1]))
+    assert d.points <= 1000 and d.resolution_s == 2 * DAY
+    assert d.rate_per_day == pytest.approx(-0.002, rel=1e-3)

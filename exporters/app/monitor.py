@@ -96,6 +96,7 @@ class Monitor:
         self._last_drift = -math.inf
         self._drift_devices: set[str] = set()
         self._drift_stale = False
+        self._contexts: dict[tuple[str, str, int, Quantity], tuple[float, AdviceContext]] = {}
         self._drift_busy = threading.Lock()
 
     # -- the read-only view the pages take (pages.view.MonitorView) -------------------
@@ -238,8 +239,15 @@ class Monitor:
             if q not in _AGEING:
                 continue
             port, lane = b.optics[int(b.optic[i])].port, int(b.lane[i])
-            out[(port, lane, q)] = history_advice_context(self.history, self.plant, b.device,
-                                                          port, lane, q, now)
+            key = (b.device, port, lane, q)
+            held = self._contexts.get(key)
+            # history gains at most one sample per sample interval: until then the facts
+            # are the same, and an alerting row is asked for them on every poll
+            if held is None or now - held[0] >= self.history.every_s:
+                held = (now, history_advice_context(self.history, self.plant, b.device,
+                                                    port, lane, q, now))
+                self._contexts[key] = held
+            out[(port, lane, q)] = held[1]
         return out
 
     async def poll_all(self) -> list[DeviceView]:

@@ -221,7 +221,7 @@ class Monitor:
                 return
             try:
                 lanes = lane_outlooks(history, self.plant_with_history(), self.targets, now,
-                                      days=DRIFT_DAYS)
+                                      days=DRIFT_DAYS, with_lasers=False)
             except HistoryError as exc:
                 log.error("drift gauges not refreshed: %s", exc)
                 return

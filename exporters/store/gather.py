@@ -38,10 +38,13 @@ def history_advice_context(history: History, plant: Plant | None, device: str, p
 
 def lane_outlooks(history: History, plant: Plant | None, targets: MarginTargets, now: float,
                   days: float = 90.0, horizon_days: float = 3650.0,
-                  progress: Callable[[int, int], None] | None = None) -> list[LaneOutlook]:
+                  progress: Callable[[int, int], None] | None = None,
+                  with_lasers: bool = True) -> list[LaneOutlook]:
     """Every receiver lane the history has a window for, with its drift and forecasts.
 
-    ``progress(done, total)`` is called after each lane (for a progress bar).
+    ``progress(done, total)`` is called after each lane (for a progress bar). Without
+    ``with_lasers`` the feeding laser's history is not read (the drift gauges need only
+    the receiver's own series: a fifth of the queries).
     """
     since = now - days * DAY
     out = []
@@ -49,8 +52,10 @@ def lane_outlooks(history: History, plant: Plant | None, targets: MarginTargets,
     for i, w in enumerate(windows):
         if progress is not None:
             progress(i, len(windows))
-        rx = history.series(w.device, w.port, w.lane, Quantity.RX_POWER, since)
-        ctx = history_advice_context(history, plant, w.device, w.port, w.lane,
-                                     Quantity.RX_POWER, now, days=days, own=rx)
+        rx = history.series(w.device, w.port, w.lane, Quantity.RX_POWER, since,
+                            hourly_first=True)
+        ctx = (history_advice_context(history, plant, w.device, w.port, w.lane,
+                                      Quantity.RX_POWER, now, days=days, own=rx)
+               if with_lasers else AdviceContext())
         out.append(lane_outlook(w, rx, ctx, targets, now, horizon_days * DAY))
     return out

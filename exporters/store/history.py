@@ -315,12 +315,15 @@ class History:
         return self._ids.get((device, port, lane, int(quantity)))
 
     def series(self, device: str, port: str, lane: int, quantity: Quantity,
-               since: float | None = None, tier: Tier | None = None) -> Series:
+               since: float | None = None, tier: Tier | None = None,
+               hourly_first: bool = False) -> Series:
         """One quantity over time: the finest tier kept at each moment, or one ``tier``.
 
         Hourly and daily points are their bin's average, placed at the bin's middle.
         Without ``tier``: raw where raw samples are kept, hourly before that, daily
-        before the hourly tier begins.
+        before the hourly tier begins. ``hourly_first``: hourly wherever it exists and
+        raw only after the last rolled-up hour, for estimators that bin to hours anyway
+        (a tenth of the rows, none of the packed polls to cut open).
         """
         lo = -(2**62) if since is None else math.floor(since)
         with self._lock:
@@ -336,6 +339,10 @@ class History:
                 hourly_from = db.execute("SELECT min(t) FROM hourly WHERE series = ?",
                                          (sid,)).fetchone()[0]
                 raw_from = 2**62 if raw_from is None else int(raw_from)
+                if hourly_first and hourly_from is not None:
+                    (last,) = db.execute("SELECT max(t) FROM hourly WHERE series = ?",
+                                         (sid,)).fetchone()
+                    raw_from = int(last) + HOUR
                 hourly_from = raw_from if hourly_from is None else int(hourly_from)
                 got = (self._tier(sid, device, "daily", lo, min(hourly_from, raw_from) - DAY + 1)
                        + self._tier(sid, device, "hourly", lo, raw_from - HOUR + 1)

@@ -247,3 +247,20 @@ def test_history_check_command(tmp_path: Path, capsys: pytest.CaptureFixture[str
     assert main(["history", "check", "-c", str(site)]) == 1
     err = capsys.readouterr().err
     assert "h.sqlite" in err and "Traceback" not in err
+
+
+def test_hourly_first_reads_the_hourly_tier_and_only_the_unrolled_tail_raw(tmp_path: Path):
+    h = History(tmp_path / "h.sqlite", every_s=1, raw_days=14)
+    start = T0 - T0 % DAY
+    t, rx = _fill(h, start, 2.0, 900)
+    h.sweep(int(t[-1]) + 1)  # every hour but the last one is rolled up
+    s = h.series("qm-a", "sfp1", 1, Quantity.RX_POWER, hourly_first=True)
+    hourly = h.summary("qm-a", "sfp1", 1, Quantity.RX_POWER, "hourly")
+    n_h = hourly.shape[0]
+    assert np.allclose(s.values[:n_h], hourly[:, 3]) and np.allclose(s.times[:n_h],
+                                                                     hourly[:, 0] + 1800)
+    tail = t[t >= hourly[-1, 0] + 3600]
+    assert list(s.times[n_h:]) == list(tail.astype(float))
+    full = h.series("qm-a", "sfp1", 1, Quantity.RX_POWER)
+    assert len(full) == t.size  # without it: every raw sample
+    h.close()

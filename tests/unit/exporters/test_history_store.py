@@ -252,7 +252,7 @@ def test_history_check_command(tmp_path: Path, capsys: pytest.CaptureFixture[str
 def test_hourly_first_reads_the_hourly_tier_and_only_the_unrolled_tail_raw(tmp_path: Path):
     h = History(tmp_path / "h.sqlite", every_s=1, raw_days=14)
     start = T0 - T0 % DAY
-    t, rx = _fill(h, start, 2.0, 900)
+    t, _ = _fill(h, start, 2.0, 900)
     h.sweep(int(t[-1]) + 1)  # every hour but the last one is rolled up
     s = h.series("qm-a", "sfp1", 1, Quantity.RX_POWER, hourly_first=True)
     hourly = h.summary("qm-a", "sfp1", 1, Quantity.RX_POWER, "hourly")

@@ -202,12 +202,13 @@ def build_rules(p: RuleParams) -> dict[str, Any]:
         },
         {
             "alert": "LightwardenRxMarginRunsOut",
-            "expr": f"lightwarden_rx_days_to_target < {_num(p.runout_days)}\n  {not_dark}\n",
+            "expr": f"lightwarden_rx_time_to_target_seconds < {_num(p.runout_days * 86400)}"
+            f"\n  {not_dark}\n",
             "for": p.drift_for,
             "labels": {"severity": "warning"},
             "annotations": {
                 "summary": f"Rx on {OPTIC} leaves its margin target in "
-                '{{ $value | printf "%.0f" }} days',
+                "{{ $value | humanizeDuration }}",
                 "description": "Forecast from the monitor's history (robust slope since "
                 f"the last step) says the margin target is lost within {_num(p.runout_days)} "
                 "days.",

@@ -21,8 +21,6 @@ from collections.abc import Iterable
 from lightwarden.exporters.prometheus.exposition import Family, escape_label_value, format_value
 from lightwarden.rules.outlook import LaneOutlook
 
-DAY = 86400.0
-
 DRIFT = Family("lightwarden_rx_drift_db_per_day", "gauge",
                "Robust slope of received power since its last step (Theil-Sen, dB/day); "
                "present only when its 95 % interval excludes zero.")
@@ -30,11 +28,11 @@ DRIFT_LOW = Family("lightwarden_rx_drift_low_db_per_day", "gauge",
                    "Lower end of the drift slope's 95 % interval, dB/day.")
 DRIFT_HIGH = Family("lightwarden_rx_drift_high_db_per_day", "gauge",
                     "Upper end of the drift slope's 95 % interval, dB/day.")
-TO_TARGET = Family("lightwarden_rx_days_to_target", "gauge",
-                   "Forecast days until received power leaves its margin target "
+TO_TARGET = Family("lightwarden_rx_time_to_target_seconds", "gauge",
+                   "Forecast time until received power leaves its margin target "
                    "(0: already outside); present only with a forecast.")
-TO_EDGE = Family("lightwarden_rx_days_to_edge", "gauge",
-                 "Forecast days until received power reaches its window edge "
+TO_EDGE = Family("lightwarden_rx_time_to_edge_seconds", "gauge",
+                 "Forecast time until received power reaches its window edge "
                  "(sensitivity or overload); present only with a forecast.")
 UPDATED = Family("lightwarden_rx_drift_updated_timestamp_seconds", "gauge",
                  "When the drift gauges were last computed from history.")
@@ -55,8 +53,8 @@ def render_drift(lanes: Iterable[LaneOutlook], now: float) -> bytes:
                     lines[fam].append(f"{fam.name}{{{lbl}}} {format_value(v)}\n")
         for fam, at in ((TO_TARGET, o.target_lost_at), (TO_EDGE, o.edge_reached_at)):
             if at is not None:
-                days = max(0.0, (at - now) / DAY)
-                lines[fam].append(f"{fam.name}{{{lbl}}} {format_value(days)}\n")
+                wait = max(0.0, at - now)
+                lines[fam].append(f"{fam.name}{{{lbl}}} {format_value(wait)}\n")
     lines[UPDATED].append(f"{UPDATED.name} {format_value(now)}\n")
     return b"".join(f.header() + "".join(lines[f]).encode() for f in FAMILIES if lines[f])
 

@@ -11,9 +11,10 @@ Query: the store it builds holds the series of all N optics (4 per optic) with
 `--filler-hours` hourly rows and `--filler-days` daily rows each, written straight into
 the tiers (writing them through months of simulated polling would take hours), plus
 `--probes` optics with a full 90 days as the tiers keep it by default: 14 days of raw
-samples at 900 s, hourly min/avg/max for all 90 days (the sweep rolls every hour up). The query is `History.series` for Rx
-power over 90 days (raw + hourly, what the report feeds the drift estimator), on probes in
-random order after reopening the file; then the drift estimate on that series.
+samples at 900 s, hourly min/avg/max for all 90 days (the sweep rolls every hour up).
+The query is `History.series` for Rx power over 90 days (raw + hourly), and the same
+hourly-first (what the drift gauges read), on probes in random order after reopening the
+file; then the drift estimate on that series.
 """
 
 from __future__ import annotations

@@ -15,6 +15,8 @@ from lightwarden.exporters.app.monitor import Monitor
 from lightwarden.exporters.prometheus.drift_metrics import render_drift
 from lightwarden.rules.outlook import LaneOutlook
 
+DAY = 86400.0
+
 
 def _samples(text: str) -> dict[str, dict[tuple[str, str, str], float]]:
     out: dict[str, dict[tuple[str, str, str], float]] = {}
@@ -33,8 +35,8 @@ def test_only_the_wearing_lane_carries_drift_and_run_out(lab_monitor: Monitor):
     low = got["lightwarden_rx_drift_low_db_per_day"][("qm-core-a", "sfp5", "1")]
     high = got["lightwarden_rx_drift_high_db_per_day"][("qm-core-a", "sfp5", "1")]
     assert low <= drift[("qm-core-a", "sfp5", "1")] <= high < 0.0
-    to_target = got["lightwarden_rx_days_to_target"][("qm-core-a", "sfp5", "1")]
-    to_edge = got["lightwarden_rx_days_to_edge"][("qm-core-a", "sfp5", "1")]
+    to_target = got["lightwarden_rx_time_to_target_seconds"][("qm-core-a", "sfp5", "1")] / DAY
+    to_edge = got["lightwarden_rx_time_to_edge_seconds"][("qm-core-a", "sfp5", "1")] / DAY
     # module Rx low alarm -18 dBm (lab.yaml), 3 dB target (common practice): at -0.06
     # dB/day the 3 dB between target and edge take 50 days
     assert to_edge - to_target == pytest.approx(3.0 / 0.06, rel=0.1)
@@ -58,5 +60,21 @@ def test_render_leaves_out_what_is_not_believed():
     past = _lane(rate_db_per_day=-0.2, rate_low=-0.3, rate_high=-0.1, moving=True,
                  target_lost_at=WALL_NOW - 86400.0, edge_reached_at=WALL_NOW + 86400.0)
     got = _samples(render_drift([past], WALL_NOW).decode())
-    assert got["lightwarden_rx_days_to_target"][("qm-a", "sfp1", "1")] == 0.0  # already out
-    assert got["lightwarden_rx_days_to_edge"][("qm-a", "sfp1", "1")] == pytest.approx(1.0)
+    assert got["lightwarden_rx_time_to_target_seconds"][("qm-a", "sfp1", "1")] == 0.0  # out now
+    assert got["lightwarden_rx_time_to_edge_seconds"][("qm-a", "sfp1", "1")] == pytest.approx(DAY)
+
+
+@pytest.mark.external
+def test_the_drift_families_pass_promtool_check_metrics():
+    # source: promtool check metrics (Prometheus's own exposition lint)
+    import subprocess
+
+    from support.procs import require_binary
+
+    promtool = require_binary("promtool")
+    lane = _lane(rate_db_per_day=-0.2, rate_low=-0.3, rate_high=-0.1, moving=True,
+                 target_lost_at=WALL_NOW + DAY, edge_reached_at=WALL_NOW + 2 * DAY)
+    res = subprocess.run([promtool, "check", "metrics"], capture_output=True, text=True,
+                         input=render_drift([lane], WALL_NOW).decode(), timeout=60,
+                         check=False)
+    assert res.returncode == 0, res.stdout + res.stderr

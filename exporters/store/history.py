@@ -71,7 +71,11 @@ class History:
         self._fitted: dict[tuple[str, str], str] = {}
         self._layouts: dict[str, tuple[object, bytes]] = {}
         self._modules_done: dict[str, bool] = {}
-        self._dirty_from: float | None = None
+        # where the roll-ups stand: raw samples from _hours_from on are not in the hourly
+        # tier yet, hourly rows from _days_from on not in the daily one (kept in state, so
+        # an hour left half-written by a restart is still rolled up)
+        self._hours_from: float | None = None
+        self._days_from: float | None = None
         self._closed = False
         try:
             self.path.parent.mkdir(parents=True, exist_ok=True)
@@ -115,6 +119,8 @@ class History:
                                        ("temperature_c", temp)) if v is not None}
         self._fitted = {(d, p): s for d, p, s in db.execute(
             "SELECT device, port, serial FROM fitted")}
+        self._hours_from = self._state("hours_from")
+        self._days_from = self._state("days_from")
         swept = self._state("swept_until")
         self._next_sweep = (swept + self.sweep_every_s) if swept is not None else -math.inf
 
@@ -178,7 +184,7 @@ class History:
                             "INSERT OR REPLACE INTO rx_window VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
                             [(w.device, w.port, w.lane, w.pmd, w.sensitivity, w.overload,
                               w.source, w.t) for w in windows])
-                self._dirty_from = t if self._dirty_from is None else min(self._dirty_from, t)
+                self._hours_from = t if self._hours_from is None else min(self._hours_from, t)
                 if t >= self._next_sweep:
                     self._sweep(t)
             except sqlite3.Error as exc:
@@ -265,23 +271,33 @@ class History:
         db = self._db
         raw_cut = now - int(self.raw_s)
         with db:
-            if self._dirty_from is not None:
-                # an hour whose raw samples retention has taken cannot be recomputed
-                start_h = max(int(self._dirty_from) // HOUR * HOUR, raw_cut // HOUR * HOUR)
-                end_h = now // HOUR * HOUR  # the current hour is not complete
+            end_h = now // HOUR * HOUR  # the current hour is not complete
+            if self._hours_from is not None:
+                # an hour whose raw samples an earlier sweep has begun to delete cannot be
+                # redone (this sweep deletes only after rolling up)
+                cut = self._state("raw_cut")
+                first_whole = -(-int(cut) // HOUR) * HOUR if cut is not None else -(2**62)
+                start_h = max(int(self._hours_from) // HOUR * HOUR, first_whole)
                 for lo in range(start_h, end_h, DAY):  # a day at a time bounds the memory
                     self._roll_hours(lo, min(lo + DAY, end_h))
-                start_d = start_h // DAY * DAY
-                end_d = end_h // DAY * DAY
+                if start_h < end_h:
+                    self._days_from = float(start_h if self._days_from is None
+                                            else min(self._days_from, start_h))
+                self._hours_from = float(max(start_h, end_h))
+                self._set_state("hours_from", self._hours_from)
+            if self._days_from is not None:
+                start_d = int(self._days_from) // DAY * DAY
+                end_d = end_h // DAY * DAY  # the current day is not complete
                 if start_d < end_d:
                     db.execute(
                         "INSERT OR REPLACE INTO daily SELECT series, t - t % 86400, sum(n), "
                         "min(min), sum(avg * n) / sum(n), max(max) FROM hourly "
                         "WHERE t >= ? AND t < ? GROUP BY series, t - t % 86400",
                         (start_d, end_d))
-                # what is left to roll up next time: the incomplete hour and day
-                self._dirty_from = float(min(end_h, end_d))
+                    self._days_from = float(end_d)
+                    self._set_state("days_from", self._days_from)
             db.execute("DELETE FROM poll WHERE t < ?", (raw_cut,))
+            self._set_state("raw_cut", float(raw_cut))
             db.execute("DELETE FROM hourly WHERE t < ?", (now - int(self.hourly_s),))
             db.execute("DELETE FROM daily WHERE t < ?", (now - int(self.daily_s),))
             self._set_state("swept_until", float(now))

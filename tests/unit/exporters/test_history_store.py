@@ -264,3 +264,32 @@ def test_hourly_first_reads_the_hourly_tier_and_only_the_unrolled_tail_raw(tmp_p
     full = h.series("qm-a", "sfp1", 1, Quantity.RX_POWER)
     assert len(full) == t.size  # without it: every raw sample
     h.close()
+
+
+def test_each_sweep_rolls_up_only_the_hours_since_the_last(tmp_path: Path,
+                                                           monkeypatch: pytest.MonkeyPatch):
+    h = History(tmp_path / "h.sqlite", every_s=1)
+    calls: list[tuple[int, int]] = []
+    real = h._roll_hours
+    monkeypatch.setattr(h, "_roll_hours", lambda lo, hi: (calls.append((lo, hi)), real(lo, hi)))
+    start = T0 - T0 % DAY
+    for i in range(12 * 4):  # twelve hours at 15 minutes
+        h.record(_batch(start + 900 * i, -5.0, -2.0, 30.0, 40.0), force=True)
+    assert calls and all(hi - lo <= HOUR for lo, hi in calls)  # never the whole day again
+    assert len(h.summary("qm-a", "sfp1", 1, Quantity.RX_POWER, "hourly")) == 11
+    h.close()
+
+
+def test_an_hour_written_before_a_restart_is_still_rolled_up(tmp_path: Path):
+    path = tmp_path / "h.sqlite"
+    start = T0 - T0 % DAY
+    h = History(path, every_s=1)
+    for i in range(6):  # 10:00 to 11:15, sweeping at the first sample only
+        h.record(_batch(start + 10 * HOUR + 900 * i, -5.0, -2.0, 30.0, 40.0), force=True)
+    h.close()
+    again = History(path, every_s=1)
+    again.record(_batch(start + 13 * HOUR, -5.0, -2.0, 30.0, 40.0), force=True)
+    again.sweep(start + 13 * HOUR + 1)
+    hours = again.summary("qm-a", "sfp1", 1, Quantity.RX_POWER, "hourly")[:, 0]
+    assert list(hours) == [start + 10 * HOUR, start + 11 * HOUR]
+    again.close()

@@ -27,8 +27,10 @@ byte coverage as implemented by the decoders (collector/eeprom).
 
 from __future__ import annotations
 
+import math
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
+from typing import TypeVar
 
 from lightwarden.collector.eeprom import ModuleMap, decode
 from lightwarden.collector.readings import OpticIdentity, Quantity, ReadingBatch, Thresholds
@@ -40,6 +42,27 @@ RX_TYPE_CHECKS = {"SFF-8472": ("CC_EXT",), "SFF-8636": ("CC_EXT",), "CMIS": ("pa
 THRESHOLD_CHECKS = {"SFF-8472": ("CC_DMI",), "SFF-8636": (), "CMIS": ("page 02h",)}
 
 OMA_ROW_NOTE = "module reports Rx power as OMA, not average power (memory map)"
+
+
+K = TypeVar("K")
+
+#: How long a module's decoded map is trusted before it is read again (its status flags
+#: are live bits; the rest rarely changes). A map with a flag set is read every poll, so a
+#: flag that clears is seen at once. Our choice: 15 minutes.
+MAP_REFRESH_S = 900.0
+
+
+def stale_maps(cache: Mapping[K, MapFacts], read_at: Mapping[K, float], now: float,
+               keys: Iterable[K]) -> list[K]:
+    """Which of ``keys`` need their map read now: never read, flagged, or older than
+    ``MAP_REFRESH_S``."""
+    out = []
+    for key in keys:
+        facts = cache.get(key)
+        if facts is None or facts.flags or facts.module_state not in ("", "ready") or (
+                now - read_at.get(key, -math.inf) >= MAP_REFRESH_S):
+            out.append(key)
+    return out
 
 
 @dataclass(slots=True, frozen=True)
@@ -57,6 +80,9 @@ class MapFacts:
     thresholds: Mapping[Quantity, Thresholds] = field(default_factory=dict)
     #: What an operator should know, shown on the optic's Rx rows.
     notes: tuple[str, ...] = ()
+    #: Status flags set when the map was read, as (name, lane), and the CMIS module state
+    flags: frozenset[tuple[str, int]] = frozenset()
+    module_state: str = ""
 
     @property
     def usable(self) -> bool:
@@ -124,6 +150,8 @@ def facts_from_module_map(m: ModuleMap) -> MapFacts:
         calibration=m.calibration,
         thresholds={} if bad_thresholds else dict(m.thresholds),
         notes=tuple(notes),
+        flags=frozenset((f.name, f.lane) for f in m.flags),
+        module_state=m.module_state or "",
     )
 
 
@@ -144,6 +172,8 @@ def apply_to_identity(identity: OpticIdentity, facts: MapFacts) -> tuple[str, ..
         identity.thresholds = merged
     if facts.rx_power_type:
         identity.rx_power_type = facts.rx_power_type
+    identity.flags = facts.flags
+    identity.module_state = facts.module_state
     if facts.pmd and not identity.pmd:
         identity.pmd, identity.pmd_source = facts.pmd, "eeprom"
     if facts.form_factor and not identity.form_factor:

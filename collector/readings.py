@@ -109,6 +109,13 @@ class OpticIdentity:
     admin_up: bool | None = None
     #: Module-declared thresholds per quantity (from the memory map or CLI output).
     thresholds: dict[Quantity, Thresholds] = field(default_factory=dict)
+    #: What the device reports about this optic that cannot be right (two sensors for
+    #: one lane, say): shown on the page, in ``check`` and counted in the health metric.
+    problems: list[str] = field(default_factory=list)
+    #: Status flags the module has set, as (name, lane): "tx_fault", "rx_los",
+    #: "rx_power_high_alarm", ... (lane 0 for module-wide flags), from its memory map.
+    flags: frozenset[tuple[str, int]] = frozenset()
+    module_state: str = ""  # CMIS module state ("ready", "low_power", "fault", ...); "" unknown
 
     @property
     def key(self) -> tuple[str, str]:

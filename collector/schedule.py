@@ -72,6 +72,7 @@ class PollScheduler:
         backoff_cap_s: float = 900.0,
         misfire_grace_s: float | None = None,
         start_spread_s: float | None = None,
+        max_in_flight: int | None = None,
     ) -> None:
         if interval_s <= 0:
             raise ValueError(f"poll interval must be positive, got {interval_s}")
@@ -84,8 +85,14 @@ class PollScheduler:
         self.backoff_factor = backoff_factor
         self.backoff_cap_s = backoff_cap_s
         self.misfire_grace_s = misfire_grace_s
-        # Where the first poll of each device lands: spread over this many seconds.
+        # Where the first poll of each device lands: spread over this many seconds (default
+        # the device's whole interval, so a fleet's first cycle does not arrive at once).
         self.start_spread_s = start_spread_s
+        if max_in_flight is not None and max_in_flight < 1:
+            raise ValueError(f"max polls in flight must be at least 1, got {max_in_flight}")
+        # Polls beyond the cap wait for a slot instead of crowding sockets and the CPU.
+        self.max_in_flight = max_in_flight
+        self._slots = asyncio.Semaphore(max_in_flight) if max_in_flight else None
         self.devices: dict[str, DeviceSchedule] = {}
         self._inflight: set[asyncio.Task[object]] = set()
         self._scheduler = AsyncIOScheduler(timezone=UTC)
@@ -119,7 +126,7 @@ class PollScheduler:
         device = self.devices[name]
         spread = self.start_spread_s
         if spread is None:
-            spread = min(device.jitter_s, device.interval_s)
+            spread = device.interval_s
         # A loop busy for a moment must not drop a device's poll outright (default 1 s).
         grace = self.misfire_grace_s if self.misfire_grace_s is not None else device.interval_s
         grace = max(2, int(grace))
@@ -171,8 +178,16 @@ class PollScheduler:
         if task is not None:
             self._inflight.add(task)
         try:
-            device.last_started = now
-            outcome = await self._run_poll(device, now)
+            if self._slots is not None:
+                async with self._slots:
+                    if self._stopping:
+                        return None  # shutting down while this poll waited for a slot
+                    now = self.clock()  # the poll starts when it gets its slot
+                    device.last_started = now
+                    outcome = await self._run_poll(device, now)
+            else:
+                device.last_started = now
+                outcome = await self._run_poll(device, now)
             device.polls += 1
             device.last_outcome = outcome
             if outcome.ok:

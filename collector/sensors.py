@@ -193,7 +193,12 @@ _WORDS = (
     (Quantity.RX_POWER, re.compile(r"\b(rx|receive[rd]?)\b", re.IGNORECASE)),
     (Quantity.TX_POWER, re.compile(r"\b(tx|transmit(ter|ted)?)\b", re.IGNORECASE)),
 )
-_LANE = re.compile(r"\blane\s*(\d+)\b", re.IGNORECASE)
+_LANE = re.compile(r"\blane\s*([0-9]+)\b", re.IGNORECASE | re.ASCII)
+_TOTAL = re.compile(r"\b(total|aggregate|sum)\b", re.IGNORECASE)
+
+#: The lane ``classify_sensor`` gives a sensor that measures all lanes together (a total
+#: optical power); the inventory stores such a reading at lane 0 of its quantity.
+LANE_TOTAL = -1
 _TYPE_QUANTITY = {CELSIUS: Quantity.TEMPERATURE, VOLTS_DC: Quantity.SUPPLY, AMPERES: Quantity.BIAS}
 
 
@@ -204,8 +209,10 @@ def classify_sensor(
 
     The type alone decides temperature, supply and bias; otherwise words in the name do
     (case-insensitive). ``port_name`` is stripped from the front of the name first so a
-    port called e.g. "rx-uplink" cannot be mistaken for a word. Lane quantities default
-    to lane 1, module quantities are lane 0.
+    port called e.g. "rx-uplink" cannot be mistaken for a word. The lane is the number
+    the name gives, as given (devices number from 0 or from 1: the inventory maps them
+    to 1..N per optic); an unnumbered lane quantity is lane 1, a total over all lanes
+    ("Rx Power Total") is ``LANE_TOTAL``, module quantities are lane 0.
     """
     text = name.strip()
     if port_name and text.lower().startswith(port_name.lower()):
@@ -224,5 +231,8 @@ def classify_sensor(
     if quantity not in LANE_QUANTITIES:
         return quantity, 0
     match = _LANE.search(text)
-    lane = int(match.group(1)) if match else 1
-    return quantity, lane if lane > 0 else 1
+    if match:
+        return quantity, int(match.group(1))
+    if quantity is not Quantity.BIAS and _TOTAL.search(text):
+        return quantity, LANE_TOTAL
+    return quantity, 1

@@ -32,6 +32,10 @@ REQUIRED = frozenset(
 )
 
 
+#: Fields only a link finding's event carries (rules/link_alerts.py).
+_LINK_FIELDS = ("finding", "far_device", "far_port")
+
+
 def _member(what: str, enum: type[AlertKind] | type[AlertSeverity]) -> Callable[[object], Enum]:
     members: dict[str, Enum] = {m.value: m for m in enum}
 
@@ -64,10 +68,14 @@ def event_to_dict(event: AlertEvent) -> dict[str, Any]:
     out.update(
         kind=event.kind.value,
         severity=event.severity.value,
-        quantity=event.quantity.label,
-        condition=event.condition.word,
+        quantity=None if event.quantity is None else event.quantity.label,
+        condition=None if event.condition is None else event.condition.word,
         window_source=event.window_source.word,
     )
+    if not event.finding:
+        # A reading's event is written exactly as before link findings existed.
+        for name in _LINK_FIELDS:
+            del out[name]
     return out
 
 
@@ -83,6 +91,8 @@ def event_from_dict(data: Mapping[str, Any], where: str = "alert event") -> Aler
         raise ValueError(f"{where}: missing fields {sorted(missing)}")
     values = dict(data)
     for name, parse in _PARSE.items():
+        if values[name] is None and values.get("finding") and name in ("quantity", "condition"):
+            continue  # a link finding is about no one reading
         try:
             values[name] = parse(values[name])
         except ValueError as exc:

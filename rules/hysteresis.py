@@ -14,9 +14,10 @@ columns at once:
   recomputed with every edge moved ``hysteresis`` further into the window (0.5 dB for
   optical power), and adopted only after it has held for ``clear_hold_s``. A reading
   that wobbles around an edge therefore never clears and re-raises.
-- **DARK is adopted at once**: no light on a port that should have it is a fact about
-  the link (a cut, a pulled fibre, a dead far-end laser), not a noisy level creeping
-  over an edge; waiting would only hide an outage for a poll or two. Leaving DARK is an
+- **DARK is adopted at once** (and so are LASER_OFF, TX_FAULT and LOSS_OF_SIGNAL,
+  ``ADOPT_AT_ONCE``): no light on a port that should have it is a fact about the link
+  (a cut, a pulled fibre, a dead or disabled laser), not a noisy level creeping over an
+  edge; waiting would only hide an outage for a poll or two. Leaving DARK is an
   improvement like any other (``clear_hold_s``), so a flapping link stays DARK.
 - **UNKNOWN is held like a worsening** (``hold_s``): one missed sensor read says nothing
   about whether a problem went away, so a critical row must not "resolve" into unknown
@@ -43,7 +44,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from lightwarden.collector.readings import Quantity, ReadingBatch
-from lightwarden.rules.findings import SEVERITY_OF, Condition
+from lightwarden.rules.findings import ADOPT_AT_ONCE, SEVERITY_OF, Condition
 
 RowKey = tuple[str, str, int, int]  # (device, port, lane, Quantity code)
 
@@ -54,7 +55,6 @@ NO_CONDITION = -1  # in state arrays: never seen / no candidate
 RANK = SEVERITY_OF
 
 _UNKNOWN = int(Condition.UNKNOWN)
-_DARK = int(Condition.DARK)
 _WORSE, _BETTER, _TO_UNKNOWN = 1, -1, 2
 
 
@@ -163,7 +163,10 @@ def step(
     hold = np.where(t_dir == _BETTER, policy.clear_hold_s, policy.hold_s)
     adopt = changing & (now - cand_since >= hold)
 
-    immediate = unseen | ((instant == _DARK) & (cur != _DARK)) | (
+    # A fact about the link (DARK, LASER_OFF, TX_FAULT, LOSS_OF_SIGNAL) is adopted at
+    # once when the row was not already in it.
+    fact = ADOPT_AT_ONCE[np.clip(instant, 0, None).astype(np.int64)] & (instant >= 0)
+    immediate = unseen | (fact & (cur != instant)) | (
         (cur == _UNKNOWN) & (instant != _UNKNOWN)
     )
     cand = np.where(immediate, instant, cand).astype(np.int8)

@@ -23,19 +23,20 @@ from lightwarden.rules.advice import (
     AdviceContext,
     advise,
     resolved_summary,
-    rx_high_side,
     summarize,
 )
 from lightwarden.rules.assess import MarginTargets
-from lightwarden.rules.event_codec import FIELDS, event_from_dict, event_to_dict
+from lightwarden.rules.event_codec import FIELDS, REQUIRED, event_from_dict, event_to_dict
 from lightwarden.rules.findings import (
     SEVERITY_OF,
     AlertEvent,
     AlertKind,
     Assessment,
     Condition,
+    Edge,
     Severity,
     WindowSource,
+    alert_key,
 )
 
 # Phases of one key's track (see DEVELOPERS.md for the table).
@@ -54,6 +55,13 @@ ALERTNAMES: dict[Condition, str] = {
     Condition.DARK: "OpticDark",
     Condition.WARNING: "OpticThresholdWarning",
     Condition.ALARM: "OpticThresholdAlarm",
+    Condition.LASER_OFF: "OpticLaserOff",
+    Condition.OFF_STANDARD: "OpticTxOffStandard",
+    Condition.TX_FAULT: "OpticTxFault",
+    Condition.LOSS_OF_SIGNAL: "OpticLossOfSignal",
+    Condition.NOT_READY: "OpticModuleNotReady",
+    Condition.LATCHED_ALARM: "OpticLatchedAlarm",
+    Condition.LANE_IMBALANCE: "OpticLaneImbalance",
 }
 
 #: Conditions that raise an alert: severity warning or critical.
@@ -147,19 +155,6 @@ class LifecycleConfig:
             raise ValueError(f"{exc} (for {Quantity(quantity).label} lane {lane})") from None
         self._cache[cache_key] = found
         return found
-
-
-def _escape(part: str) -> str:
-    return part.replace("%", "%25").replace("|", "%7C")
-
-
-def alert_key(device: str, port: str, lane: int, quantity: Quantity) -> str:
-    """Stable identity of one alert subject: "device|port|lane|quantity".
-
-    No instance id in it, so two monitors watching the same device agree on it. "|" and
-    "%" inside names are percent-escaped so that the key splits back unambiguously.
-    """
-    return f"{_escape(device)}|{_escape(port)}|{lane}|{Quantity(quantity).label}"
 
 
 @dataclass(slots=True)
@@ -289,7 +284,8 @@ def _track_from_dict(where: str, raw: Any) -> Track:
     last_raw = raw.get("last")
     last = None
     if last_raw is not None:
-        if not isinstance(last_raw, Mapping) or set(last_raw) != _EVENT_FIELDS:
+        # Fields with defaults may be missing: snapshots from before they were added.
+        if not isinstance(last_raw, Mapping) or not REQUIRED <= set(last_raw) <= _EVENT_FIELDS:
             raise ValueError(
                 f"{where}.last: expected an alert event with fields {sorted(_EVENT_FIELDS)}"
             )
@@ -355,7 +351,11 @@ class AlertLifecycle:
         cond = assessment.condition.astype(np.intp, copy=False)
         if cond.size and (cond.min() < 0 or cond.max() >= len(Condition)):
             raise ValueError(f"lifecycle for {batch.device}: condition codes out of range")
-        alerting = _ALERTING[cond]
+        alerting = _ALERTING[cond].copy()
+        if assessment.cause:
+            # A row explained by another (the zero bias of a laser that is off, the dark
+            # receiver it feeds) raises no alert of its own: one cause, one alert.
+            alerting[list(assessment.cause)] = False
         severity = SEVERITY_OF[cond]
         device = batch.device
         tracked = self.state.keys_for(device)
@@ -452,6 +452,8 @@ class AlertLifecycle:
             track.phase = STALE_CLEARING if track.phase == STALE_PHASE else CLEARING
         assert track.last is not None
         last = track.last
+        # The lifecycle only ever makes reading events (link findings: rules/link_alerts.py).
+        assert last.quantity is not None and last.condition is not None
         policy = self.config.policy(last.quantity, last.lane)
         hold = policy.gone_hold_s if i is None else policy.resolve_hold_s
         if now - track.clear_since < hold:
@@ -554,22 +556,23 @@ class _Facts:
 
 def _facts(a: Assessment, i: int) -> _Facts:
     batch = a.batch
+    assert a.edge is not None and a.edge_value is not None and a.edge_source is not None
+    assert a.edge_margin_db is not None
     quantity = Quantity(int(batch.quantity[i]))
     condition = Condition(int(a.condition[i]))
-    value = _opt(float(batch.value[i]))
-    edge_name, edge_value, margin = _edge(condition, quantity, value, a, i)
+    edge = Edge(int(a.edge[i]))
     return _Facts(
         condition=condition,
         quantity=quantity,
         port=batch.optics[int(batch.optic[i])].port,
         lane=int(batch.lane[i]),
-        value=value,
+        value=_opt(float(batch.value[i])),
         low=float(a.low_edge[i]),
         high=float(a.high_edge[i]),
-        edge_name=edge_name,
-        edge_value=edge_value,
-        margin=margin,
-        source=WindowSource(int(a.window_source[i])),
+        edge_name=edge.word,
+        edge_value=_opt(float(a.edge_value[i])) if edge is not Edge.NONE else None,
+        margin=_opt(float(a.edge_margin_db[i])),
+        source=WindowSource(int(a.edge_source[i])),
     )
 
 
@@ -607,29 +610,6 @@ def _check_aligned(a: Assessment) -> None:
             raise ValueError(
                 f"assessment for {a.batch.device}: {name} has {size} rows, the batch has {n}"
             )
-
-
-def _edge(
-    condition: Condition, quantity: Quantity, value: float | None, a: Assessment, i: int
-) -> tuple[str, float | None, float | None]:
-    """Which edge the alert is about, its value, and the margin to it in dB (power only)."""
-    low, high = float(a.low_edge[i]), float(a.high_edge[i])
-    if quantity is Quantity.RX_POWER:
-        if rx_high_side(condition, math.nan if value is None else value, low, high):
-            return "overload", _opt(high), _opt(float(a.margin_high_db[i]))
-        return "sensitivity", _opt(low), _opt(float(a.margin_low_db[i]))
-    if value is None:
-        return "", None, None
-    if condition is Condition.ALARM:
-        hi_name, lo_name, hi, lo = "high_alarm", "low_alarm", high, low
-    else:
-        hi_name, lo_name = "high_warning", "low_warning"
-        hi, lo = float(a.high_warning[i]), float(a.low_warning[i])
-    if math.isfinite(hi) and value >= hi:
-        return hi_name, hi, _opt(float(a.margin_high_db[i]))
-    if math.isfinite(lo) and value <= lo:
-        return lo_name, lo, _opt(float(a.margin_low_db[i]))
-    return "", None, None
 
 
 #: Readings come in 0.01 dB steps; without slack, -2.3 - (-1.8) = 0.4999... misses 0.5.

@@ -41,6 +41,8 @@ class SpanRecord(Protocol):
     def pad_db(self) -> float: ...
     @property
     def wavelength_nm(self) -> float | None: ...
+    @property
+    def mode_conditioning(self) -> bool: ...
 
 
 def build_plant(records: Iterable[SpanRecord], catalogue: Catalogue,
@@ -58,7 +60,8 @@ def build_plant(records: Iterable[SpanRecord], catalogue: Catalogue,
         if wavelength is None:
             wavelength = 850.0 if sp.fibre.startswith("OM") else 1310.0
         spans.append(PlantSpan(a_dev, a_port, b_dev, b_port, sp.km, sp.fibre, wavelength,
-                               sp.connectors, sp.splices, sp.pad_db))
+                               sp.connectors, sp.splices, sp.pad_db,
+                               sp.mode_conditioning))
         far[(a_dev, a_port)] = (b_dev, b_port)
         far[(b_dev, b_port)] = (a_dev, a_port)
     return Plant(spans, far)

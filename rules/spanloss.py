@@ -1,5 +1,7 @@
 """Span loss measured from both ends' diagnostics, against the engineered loss budget.
 
+(Whether the two ends' optics belong together is rules/consistency.py.)
+
 Measured loss A->B is Tx(A) - Rx(B) per lane. Engineered loss follows the link
 attenuation form of ITU-T G.652 Appendix I: A = alpha*L + splices*a_s + connectors*a_c,
 plus any fixed pads in the path. Digital diagnostics are only good to about +-3 dB per
@@ -10,13 +12,11 @@ and watch how it moves against its own baseline.
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import dataclass
 
 import numpy as np
 
-from lightwarden.collector.readings import OpticIdentity, Quantity, ReadingBatch, ReadingStatus
-from lightwarden.rules.findings import AlertSeverity
+from lightwarden.collector.readings import Quantity, ReadingBatch, ReadingStatus
 
 SINGLEMODE = frozenset({"OS1", "OS1A", "OS2"})
 MULTIMODE = frozenset({"OM1", "OM2", "OM3", "OM4", "OM5"})
@@ -56,6 +56,8 @@ class PlantSpan:
     connectors: int = 2  # mated pairs in the path, patch panels included
     splices: int = 0
     pad_db: float = 0.0  # fixed attenuators fitted on purpose
+    #: mode-conditioning patch cords fitted at both ends (1000BASE-LX on multimode fibre)
+    mode_conditioning: bool = False
 
     @property
     def name(self) -> str:
@@ -233,93 +235,3 @@ def span_loss_growth(
     if b.size < min_samples or r.size < min_samples:
         return None
     return float(np.median(r) - np.median(b))
-
-
-# --- link consistency ----------------------------------------------------------------
-
-#: Complementary transmit wavelength pairs for single-fibre bidirectional optics.
-#: 1270/1330 and 1310/1550: standards.md "Rules of thumb" (practice);
-#: 1310/1490: 1000BASE-BX10 (IEEE 802.3 clause 59, from memory).
-BIDI_PAIRS: tuple[tuple[float, float], ...] = ((1270.0, 1330.0), (1310.0, 1550.0), (1310.0, 1490.0))
-
-_BIDI_PMD = re.compile(r"(?:-B[XR]\d*|BIDI)", re.IGNORECASE)
-_BIDI_SIDE = re.compile(r"-[UD]$", re.IGNORECASE)
-
-
-@dataclass(slots=True, frozen=True)
-class LinkIssue:
-    # "pmd-mismatch" | "wavelength-mismatch" | "bidi-same-wavelength" | "bidi-not-complementary"
-    kind: str
-    severity: AlertSeverity
-    text: str
-
-
-def is_bidi(optic: OpticIdentity) -> bool:
-    return bool(_BIDI_PMD.search(optic.pmd))
-
-
-def _pair_known(w1: float, w2: float, pairs: tuple[tuple[float, float], ...], tol: float) -> bool:
-    lo, hi = sorted((w1, w2))
-    return any(abs(lo - p) <= tol and abs(hi - q) <= tol for p, q in pairs)
-
-
-def check_link(
-    a: OpticIdentity,
-    b: OpticIdentity,
-    *,
-    bidi: bool | None = None,
-    wavelength_tolerance_nm: float = 20.0,
-    bidi_pairs: tuple[tuple[float, float], ...] = BIDI_PAIRS,
-) -> list[LinkIssue]:
-    """Do the optics at the two ends of one span belong together?
-
-    ``bidi`` None means: decide from the PMD names (a "-BX"/"-BR" name or "BIDI" at
-    either end). Unknown PMD names or wavelengths give no issue: there is nothing to
-    compare, and a missing fact is not a fault.
-    """
-    ends = f"{a.device} {a.port} / {b.device} {b.port}"
-    single_fibre = (is_bidi(a) or is_bidi(b)) if bidi is None else bidi
-    issues: list[LinkIssue] = []
-    if a.pmd and b.pmd:
-        pa, pb = a.pmd.upper(), b.pmd.upper()
-        if single_fibre:  # the two halves of a BiDi pair differ only by their -U / -D suffix
-            pa, pb = _BIDI_SIDE.sub("", pa), _BIDI_SIDE.sub("", pb)
-        if pa != pb:
-            issues.append(
-                LinkIssue(
-                    "pmd-mismatch",
-                    AlertSeverity.WARNING,
-                    f"{ends}: PMD types differ ({a.pmd} vs {b.pmd})",
-                )
-            )
-    wa, wb = a.wavelength_nm, b.wavelength_nm
-    if wa is None or wb is None:
-        return issues
-    if single_fibre:
-        if abs(wa - wb) <= wavelength_tolerance_nm:
-            issues.append(
-                LinkIssue(
-                    "bidi-same-wavelength",
-                    AlertSeverity.CRITICAL,
-                    f"{ends}: both BiDi ends transmit at {wa:.0f} nm; they need a "
-                    "complementary pair (e.g. 1310/1550 nm)",
-                )
-            )
-        elif not _pair_known(wa, wb, bidi_pairs, wavelength_tolerance_nm / 2):
-            issues.append(
-                LinkIssue(
-                    "bidi-not-complementary",
-                    AlertSeverity.WARNING,
-                    f"{ends}: BiDi ends transmit at {wa:.0f} and {wb:.0f} nm, not a known "
-                    "complementary pair",
-                )
-            )
-    elif abs(wa - wb) > wavelength_tolerance_nm:
-        issues.append(
-            LinkIssue(
-                "wavelength-mismatch",
-                AlertSeverity.CRITICAL,
-                f"{ends}: wavelengths differ ({wa:.0f} vs {wb:.0f} nm)",
-            )
-        )
-    return issues

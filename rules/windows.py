@@ -1,56 +1,49 @@
-"""Which window each reading is judged against, and who declared each of its edges.
+"""Which edges each reading is judged against, and who declared each of them.
 
-Precedence (per quantity, per lane, and **per edge**: each of low edge, high edge, low
-warning and high warning is taken from the first source below that declares it):
+Every reading gets **two judgements**, and its condition is the worse of the two:
 
-1. **site**: a :class:`WindowOverride` from the site config. Among overrides that
-   match an optic, a port-level one (``port`` given) beats a part-number one, which
-   beats a device-wide one, which beats a site-wide one; a lane-specific one beats a
-   lane-less one of the same scope; among equals the later one wins.
-2. **module**: the thresholds the module declares for that quantity (SFF-8472 A2h,
-   SFF-8636 page 03h, CMIS page 02h, or CLI output). A block whose low alarm is not
-   below its high alarm (blank EEPROM areas read as all zeros) is ignored, with a note.
-3. **pmd-table**: the IEEE 802.3 row for the optic's PMD. Rx power: sensitivity edge =
-   minimum average receive power, overload edge = maximum average receive power.
-   Tx power: launch power minimum/maximum. Only alarm-level edges come from here.
-4. **practice**: only when nothing above declares any edge of the quantity:
-   temperature 0..70 C (commercial case range) and supply 3.3 V +-5 % as *warning*
-   edges, so practice alone never raises more than a warning.
+- the **margin edges** (``low_edge``/``high_edge``): for Rx power the sensitivity and the
+  overload, for Tx power the launch window. Where the PMD is known they come from the
+  standard (the IEEE 802.3 row: what any compliant part guarantees, so what a margin
+  target is measured from); where it is not, from the module's alarms. Margin targets
+  (NEAR_OVERLOAD / NEAR_SENSITIVITY) and OVERLOADED / BELOW_SENSITIVITY use these.
+  For the other quantities the margin edges are the alarm levels.
+- the module's **declared levels** (``low_alarm``/``high_alarm``, ``low_warning``/
+  ``high_warning``), what the module's own flags would say: past an alarm is ALARM,
+  past a warning is WARNING, for Rx as for every other quantity.
 
-Why the module before the PMD table, even though vendors often choose looser Rx alarms:
+A **site** override wins over both: an edge the site declares replaces that edge in both
+judgements. Among overrides that match an optic, a port-level one (``port`` given) beats
+a part-number one, which beats a device-wide one, which beats a site-wide one; a
+lane-specific one beats a lane-less one of the same scope; among equals the later wins.
 
-- module thresholds are stated in the same terms as the readings (average power or
-  OMA, the same lane numbering, the same calibration), the PMD table only in average
-  power;
-- they describe the part actually fitted, while the PMD row is the least a compliant
-  part may do; a better-than-spec receiver judged by the PMD row would be called
-  "below sensitivity" (critical) on a link that runs clean;
-- what a margin target is for is exactly the gap the vendor leaves: we keep 3 dB from
-  the sensitivity edge whichever source gave it. Where the module's Rx alarm is looser
-  than the PMD row, the window carries a note saying by how much, so an operator who
-  wants the standard's edge can set a site override.
+Why both, rather than the module before the standard (as before): module levels are
+often looser than the standard (a typical 10GBASE-LR module declares a -18.2 dBm low Rx
+alarm against the standard's -14.4 dBm), so a receiver 0.4 dB above the standard's edge
+looked healthy; and module warnings sit inside the standard's window on the high side
+(+0.5 dBm warning), so a receiver past its own warning flag looked healthy too. Judging
+both, and showing both with their sources, says what the standard promises and what the
+module itself would flag.
 
-Per edge rather than per window, because partial declarations are common: a site may
-know only the overload of a short-reach link, a module may declare only alarms. The
-alternative, taking the whole window from the first source that declares anything,
-would leave those windows half empty. Mixed windows carry a note naming each edge's
-source; :attr:`Window.source` (what lands in ``Assessment.window_source``) is the
-most authoritative source contributing any edge.
+Module thresholds: a block whose low alarm is not below its high alarm (blank EEPROM
+areas read as all zeros) is ignored, with a note. **Practice** fills warning edges only
+when nothing else declares any edge of the quantity: temperature 0..70 C (commercial
+case range) and supply 3.3 V +-5 %, so practice alone never raises more than a warning.
 
-OMA: when the module reports Rx power as OMA, the PMD table (average power) is never
-used for Rx; only the module's own thresholds (declared in the same terms) and site
-overrides apply, and an Rx window without edges says why.
+OMA: when the module reports Rx power as OMA, the standard's average-power edges are
+never used for Rx; only the module's own thresholds (declared in the same terms), the
+standard's OMA edges where the table has them, and site overrides apply.
 """
 
 from __future__ import annotations
 
 import math
 from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from lightwarden.collector.readings import OpticIdentity, Quantity, Thresholds
-from lightwarden.rules.catalogue import Catalogue, PmdSpec
-from lightwarden.rules.findings import WindowSource
+from lightwarden.rules.catalogue import NOT_JUDGED, Catalogue, PmdSpec
+from lightwarden.rules.findings import EDGE_COLUMNS, WindowSource
 
 NAN = math.nan
 
@@ -63,17 +56,24 @@ PRECEDENCE = {
     WindowSource.SITE: 4,
 }
 
+#: Across the two judgements a module level that crosses the standard's edge is the
+#: bad declaration; only the site outranks the standard there.
+_CROSS_RANK = {**PRECEDENCE, WindowSource.MODULE: PRECEDENCE[WindowSource.PMD_TABLE] - 1}
+
 #: Common practice (standards.md "Rules of thumb"): commercial case temperature and Vcc.
 PRACTICE_TEMPERATURE_C = (0.0, 70.0)
 PRACTICE_SUPPLY_V = (3.3 * 0.95, 3.3 * 1.05)
 
-EDGE_NAMES = ("low_edge", "high_edge", "low_warning", "high_warning")
+EDGE_NAMES = EDGE_COLUMNS
+_NONE6 = (WindowSource.NONE,) * 6
 OMA_NOTE = "Rx power reported as OMA; PMD table edges are average power, not compared"
 
 
 def _edge_words(quantity: Quantity) -> tuple[str, str, str, str]:
     if quantity is Quantity.RX_POWER:
         return ("sensitivity", "overload", "low warning", "high warning")
+    if quantity is Quantity.TX_POWER:
+        return ("launch minimum", "launch maximum", "low warning", "high warning")
     return ("low alarm", "high alarm", "low warning", "high warning")
 
 
@@ -138,15 +138,24 @@ class WindowOverride:
 
 @dataclass(slots=True, frozen=True)
 class Window:
-    """Resolved edges for one (optic, lane, quantity); NaN where no edge is known."""
+    """Resolved edges for one (optic, lane, quantity); NaN where no edge is known.
+
+    ``low_edge``/``high_edge`` are the margin edges, ``low_alarm``/``high_alarm`` and the
+    warnings the declared levels (see the module doc); ``sources`` follows
+    ``EDGE_COLUMNS``.
+    """
 
     low_edge: float = NAN
     high_edge: float = NAN
+    low_alarm: float = NAN
+    high_alarm: float = NAN
     low_warning: float = NAN
     high_warning: float = NAN
-    sources: tuple[WindowSource, WindowSource, WindowSource, WindowSource] = (
-        WindowSource.NONE, WindowSource.NONE, WindowSource.NONE, WindowSource.NONE)
+    sources: tuple[WindowSource, ...] = _NONE6
     note: str = ""
+    #: Rx only: the standard's OMA sensitivity as an average power at its minimum
+    #: extinction ratio. Derived and never binding: shown beside the judged edges.
+    oma_equivalent_dbm: float = NAN
 
     @property
     def source(self) -> WindowSource:
@@ -154,15 +163,34 @@ class Window:
         return max(self.sources, key=PRECEDENCE.__getitem__)
 
     def edge_source(self, edge: str) -> WindowSource:
-        """Source of one edge by name: "low_edge", "high_edge", "low_warning", ..."""
-        return self.sources[EDGE_NAMES.index(edge)]
+        """Source of one edge by column name: "low_edge", "high_alarm", "low_warning", ..."""
+        return self.sources[EDGE_COLUMNS.index(edge)]
 
     @property
-    def edges(self) -> tuple[float, float, float, float]:
-        return (self.low_edge, self.high_edge, self.low_warning, self.high_warning)
+    def edges(self) -> tuple[float, float, float, float, float, float]:
+        return (self.low_edge, self.high_edge, self.low_alarm, self.high_alarm,
+                self.low_warning, self.high_warning)
 
 
 EMPTY_WINDOW = Window()
+
+
+def total_window(window: Window, lanes: int) -> Window:
+    """The window of a total-power reading over ``lanes`` equal lanes.
+
+    Every per-lane edge in dBm moves up by 10 log10(lanes) (four equal lanes carry four
+    times one lane's power: +6.0 dB; dB arithmetic, standards.md). A total hides one weak
+    lane behind three good ones, so the note says it is judged on that assumption.
+    """
+    if lanes <= 1:
+        return window
+    shift = 10.0 * math.log10(lanes)
+    note = (f"total power of {lanes} lanes: judged against the per-lane edges "
+            f"+{shift:.1f} dB (assumes equal lanes; a weak lane can hide in a total)")
+    lo, hi, lo_a, hi_a, lo_w, hi_w = (e + shift for e in window.edges)
+    return Window(lo, hi, lo_a, hi_a, lo_w, hi_w, sources=window.sources,
+                  note="; ".join(t for t in (window.note, note) if t),
+                  oma_equivalent_dbm=window.oma_equivalent_dbm + shift)
 
 
 @dataclass(slots=True, frozen=True)
@@ -253,10 +281,15 @@ def _module_edges(
     return edges, ""
 
 
-def _pmd_edges(quantity: Quantity, pmd: PmdSpec | None) -> tuple[float | None, ...]:
+def _pmd_edges(quantity: Quantity, pmd: PmdSpec | None, oma: bool = False
+               ) -> tuple[float | None, ...]:
     if pmd is None:
         return (None, None, None, None)
     if quantity is Quantity.RX_POWER:
+        if oma:
+            # Judged in its own terms: the standard's OMA sensitivity where it states one;
+            # its overload is an average power, so no high edge from the standard.
+            return (pmd.rx_sens_oma_dbm, None, None, None)
         return (pmd.rx_min_avg_dbm, pmd.rx_overload_dbm, None, None)
     if quantity is Quantity.TX_POWER:
         return (pmd.tx_min_dbm, pmd.tx_max_dbm, None, None)
@@ -271,56 +304,86 @@ def _practice_edges(quantity: Quantity) -> tuple[float | None, ...]:
     return (None, None, None, None)
 
 
-def _merge(
-    quantity: Quantity,
-    site: Sequence[WindowOverride],
-    module: tuple[float | None, ...],
-    pmd_edges: tuple[float | None, ...],
-    notes: list[str],
-) -> Window:
+def _site_edges(site: Sequence[WindowOverride]) -> list[float | None]:
+    """(low, high, low warning, high warning) as the site declares them, per edge."""
     values: list[float | None] = [None, None, None, None]
-    sources = [WindowSource.NONE] * 4
     for k in range(4):
         # ``site`` is least specific first: the last override declaring the edge wins.
         for o in reversed(site):
             v = o.edges()[k]
             if v is not None:
-                values[k], sources[k] = v, WindowSource.SITE
+                values[k] = v
                 break
-        else:
-            if module[k] is not None:
-                values[k], sources[k] = module[k], WindowSource.MODULE
-            elif pmd_edges[k] is not None:
-                values[k], sources[k] = pmd_edges[k], WindowSource.PMD_TABLE
+    return values
+
+
+def _uncross(values: list[float | None], sources: list[WindowSource], lo: int, hi: int,
+             words: tuple[str, str], notes: list[str],
+             rank: Mapping[WindowSource, int] | None = None) -> None:
+    low, high = values[lo], values[hi]
+    if low is None or high is None or low < high:
+        return
+    # Edges from different sources crossed: keep the more authoritative one.
+    rank = rank or PRECEDENCE
+    drop, keep = (lo, hi) if rank[sources[lo]] < rank[sources[hi]] else (hi, lo)
+    wd, wk = (words[0], words[1]) if drop == lo else (words[1], words[0])
+    notes.append(
+        f"{wd} {values[drop]:g} ({sources[drop].word}) dropped: it is not on "
+        f"the right side of {wk} {values[keep]:g} ({sources[keep].word})"
+    )
+    values[drop], sources[drop] = None, WindowSource.NONE
+
+
+def _merge(
+    quantity: Quantity,
+    site: Sequence[WindowOverride],
+    module: tuple[float | None, ...],
+    standard: tuple[float | None, ...],
+    notes: list[str],
+) -> Window:
+    """Six edges with their sources; see the module doc for who wins where."""
+    declared = _site_edges(site)
+    values: list[float | None] = [None] * 6
+    sources = [WindowSource.NONE] * 6
+    for k in (0, 1):
+        # Margin edges: site, else the standard, else the module's alarm.
+        for v, src in ((declared[k], WindowSource.SITE), (standard[k], WindowSource.PMD_TABLE),
+                       (module[k], WindowSource.MODULE)):
+            if v is not None:
+                values[k], sources[k] = v, src
+                break
+        # Declared levels: site, else the module (alarms, then warnings).
+        for col, m in ((2 + k, k), (4 + k, 2 + k)):
+            for v, src in ((declared[m], WindowSource.SITE), (module[m], WindowSource.MODULE)):
+                if v is not None:
+                    values[col], sources[col] = v, src
+                    break
     if all(s is WindowSource.NONE for s in sources):
         practice = _practice_edges(quantity)
         if any(v is not None for v in practice):
-            values = list(practice)
-            sources = [WindowSource.PRACTICE if v is not None else WindowSource.NONE
-                       for v in practice]
+            values[4], values[5] = practice[2], practice[3]
+            sources[4] = sources[5] = WindowSource.PRACTICE
             what = ("commercial case temperature 0-70 C" if quantity is Quantity.TEMPERATURE
                     else "supply 3.3 V +-5 %")
             notes.append(f"no thresholds declared; warning edges from common practice ({what})")
 
     words = _edge_words(quantity)
-    low, high = values[0], values[1]
-    if low is not None and high is not None and low >= high:
-        # Edges from different sources crossed: keep the more authoritative one.
-        drop = 0 if PRECEDENCE[sources[0]] < PRECEDENCE[sources[1]] else 1
-        notes.append(
-            f"{words[drop]} {values[drop]:g} ({sources[drop].word}) dropped: it is not on "
-            f"the right side of {words[1 - drop]} {values[1 - drop]:g} ({sources[1 - drop].word})"
-        )
-        values[drop], sources[drop] = None, WindowSource.NONE
+    _uncross(values, sources, 0, 1, (words[0], words[1]), notes)
+    if quantity in (Quantity.RX_POWER, Quantity.TX_POWER):
+        _uncross(values, sources, 2, 3, ("low alarm", "high alarm"), notes)
+        # A level on the wrong side of the other judgement's edge is a bad declaration
+        # (it would flag every reading): the more authoritative of the two stays.
+        _uncross(values, sources, 0, 3, (words[0], "high alarm"), notes, _CROSS_RANK)
+        _uncross(values, sources, 2, 1, ("low alarm", words[1]), notes, _CROSS_RANK)
 
     used = {s for s in sources[:2] if s is not WindowSource.NONE}
     if len(used) > 1:
         notes.append(", ".join(f"{words[k]} from {sources[k].word}" for k in (0, 1)))
-    low_edge, high_edge, low_warning, high_warning = (
+    low_edge, high_edge, low_alarm, high_alarm, low_warning, high_warning = (
         NAN if v is None else float(v) for v in values)
     return Window(
-        low_edge, high_edge, low_warning, high_warning,
-        sources=(sources[0], sources[1], sources[2], sources[3]),
+        low_edge, high_edge, low_alarm, high_alarm, low_warning, high_warning,
+        sources=tuple(sources),
         note="; ".join(notes),
     )
 
@@ -335,39 +398,64 @@ def _resolve_quantity(
     module, module_note = _module_edges(quantity, optic.thresholds.get(quantity))
     if module_note:
         notes.append(module_note)
-    pmd_edges = _pmd_edges(quantity, pmd)
     oma = optic.rx_power_type.strip().lower() == "oma"
-    if quantity is Quantity.RX_POWER and oma:
-        if any(v is not None for v in pmd_edges):
+    pmd_edges = _pmd_edges(quantity, pmd, oma)
+    if quantity is Quantity.RX_POWER and oma and pmd is not None:
+        if pmd_edges[0] is None and pmd.rx_min_avg_dbm is not None:
             declared = [o.edges()[:2] for o in site] + [module[:2]]
             if not all(any(e[k] is not None for e in declared) for k in (0, 1)):
                 notes.append(OMA_NOTE)
-        pmd_edges = (None, None, None, None)
+        elif pmd_edges[0] is not None:
+            notes.append(f"Rx judged in OMA: the standard's {pmd.name} OMA sensitivity "
+                         f"{pmd_edges[0]:.1f} dBm ({pmd.oma_clause or pmd.clause or 'IEEE 802.3'})")
     if quantity is Quantity.RX_POWER and pmd is not None and not oma:
         _note_looser_module(module, pmd, notes)
-    if optic.pmd and pmd is None and quantity in (Quantity.RX_POWER, Quantity.TX_POWER):
-        notes.append(f"PMD {optic.pmd!r} is not in the PMD table")
-    return _merge(quantity, site, module, pmd_edges, notes)
+    if quantity in (Quantity.RX_POWER, Quantity.TX_POWER) and optic.pmd:
+        if pmd is None:
+            notes.append(_unknown_pmd_note(optic.pmd))
+        elif not pmd.has_power_figures:
+            notes.append(f"the PMD table names {pmd.name} ({pmd.source}) but holds no power "
+                         "levels for it: judged by the module's own levels")
+    window = _merge(quantity, site, module, pmd_edges, notes)
+    if quantity is Quantity.RX_POWER and pmd is not None and not oma:
+        derived = pmd.rx_sens_avg_from_oma_dbm
+        if derived is not None:
+            # Shown beside the average edges, never judged (see PmdSpec).
+            window = replace(window, oma_equivalent_dbm=derived)
+    return window
+
+
+def _unknown_pmd_note(pmd: str) -> str:
+    reason = NOT_JUDGED.get(pmd.strip().upper())
+    if reason:
+        return f"PMD {pmd!r} is not judged against the PMD table: {reason}"
+    return f"PMD {pmd!r} is not in the PMD table"
 
 
 def _note_looser_module(module: tuple[float | None, ...], pmd: PmdSpec, notes: list[str]) -> None:
     low, high = module[0], module[1]
     if low is not None and pmd.rx_min_avg_dbm is not None and low < pmd.rx_min_avg_dbm - 0.05:
         notes.append(
-            f"module Rx low alarm {low:g} dBm is {pmd.rx_min_avg_dbm - low:.1f} dB below the "
-            f"{pmd.name} minimum average receive power {pmd.rx_min_avg_dbm:g} dBm"
+            f"module looser than the standard: Rx low alarm {low:.1f} dBm is "
+            f"{pmd.rx_min_avg_dbm - low:.1f} dB below the {pmd.name} minimum average receive "
+            f"power {pmd.rx_min_avg_dbm:.1f} dBm"
         )
     if high is not None and pmd.rx_overload_dbm is not None and high > pmd.rx_overload_dbm + 0.05:
         notes.append(
-            f"module Rx high alarm {high:g} dBm is {high - pmd.rx_overload_dbm:.1f} dB above the "
-            f"{pmd.name} overload {pmd.rx_overload_dbm:g} dBm"
+            f"module looser than the standard: Rx high alarm {high:.1f} dBm is "
+            f"{high - pmd.rx_overload_dbm:.1f} dB above the {pmd.name} overload "
+            f"{pmd.rx_overload_dbm:.1f} dBm"
         )
 
 
 def _resolve(
-    optic: OpticIdentity, catalogue: Catalogue, matched: Sequence[WindowOverride]
+    optic: OpticIdentity, catalogue: Catalogue, matched: Sequence[WindowOverride],
+    fibre: str | None = None,
 ) -> OpticWindows:
-    pmd = catalogue.lookup(optic.pmd) if optic.pmd else None
+    # The row for the plant's fibre (1000BASE-LX launches less on multimode) and, for a
+    # direction-less BiDi name, the direction the module's wavelength says.
+    pmd = catalogue.lookup(optic.pmd, fibre=fibre, wavelength_nm=optic.wavelength_nm) \
+        if optic.pmd else None
     by_quantity = []
     lane_specific: dict[Quantity, set[int]] = {}
     for o in matched:
@@ -388,14 +476,18 @@ def resolve_windows(
     optic: OpticIdentity,
     catalogue: Catalogue,
     overrides: Iterable[WindowOverride] | OverrideIndex = (),
+    fibre: str | None = None,
 ) -> OpticWindows:
-    """All windows of one optic, with the source of every edge."""
+    """All windows of one optic, with the source of every edge; ``fibre`` is the plant's
+    fibre at its port (a kind or grade), when recorded."""
     index = overrides if isinstance(overrides, OverrideIndex) else OverrideIndex(overrides)
-    return _resolve(optic, catalogue, [index.overrides[i] for i in index.matching(optic)])
+    return _resolve(optic, catalogue, [index.overrides[i] for i in index.matching(optic)],
+                    fibre)
 
 
 # (PMD, Rx power type, module thresholds, indices of the matching overrides)
-_CacheKey = tuple[str, str, tuple[tuple[Quantity, Thresholds], ...], tuple[int, ...]]
+_CacheKey = tuple[str, str, tuple[tuple[Quantity, Thresholds], ...], tuple[int, ...],
+                  str | None, float | None]
 
 
 class WindowResolver:
@@ -406,17 +498,21 @@ class WindowResolver:
     one when the config changes.
     """
 
-    __slots__ = ("_cache", "catalogue", "index", "max_entries")
+    __slots__ = ("_cache", "catalogue", "fibre_of", "index", "max_entries")
 
     def __init__(
         self,
         catalogue: Catalogue,
         overrides: Iterable[WindowOverride] | OverrideIndex = (),
         max_entries: int = 65536,
+        fibre_of: Mapping[tuple[str, str], str] | None = None,
     ) -> None:
         self.catalogue = catalogue
         self.index = overrides if isinstance(overrides, OverrideIndex) else OverrideIndex(overrides)
         self.max_entries = max_entries
+        #: The plant's fibre per (device, port), so a PMD with rows per fibre type is
+        #: judged by the row for the fibre it is on.
+        self.fibre_of: Mapping[tuple[str, str], str] = fibre_of or {}
         self._cache: dict[_CacheKey, OpticWindows] = {}
 
     def __call__(self, optic: OpticIdentity) -> OpticWindows:
@@ -428,6 +524,8 @@ class WindowResolver:
             # different order only costs a duplicate entry.
             tuple(optic.thresholds.items()),
             matched,
+            self.fibre_of.get((optic.device, optic.port)) if self.fibre_of else None,
+            optic.wavelength_nm,
         )
         cacheable = True
         try:
@@ -435,7 +533,8 @@ class WindowResolver:
         except TypeError:  # unhashable threshold values: resolve without caching
             found, cacheable = None, False
         if found is None:
-            found = _resolve(optic, self.catalogue, [self.index.overrides[i] for i in matched])
+            found = _resolve(optic, self.catalogue, [self.index.overrides[i] for i in matched],
+                             key[4])
             if cacheable:
                 if len(self._cache) >= self.max_entries:
                     self._cache.clear()

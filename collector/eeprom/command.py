@@ -1,7 +1,8 @@
 """``lightwarden decode FILE [--json]``: the function behind the command.
 
-Exit codes: 0 decoded without problems, 1 decoded with problems, 2 the file could not
-be read as a memory map (missing, empty, not hex). Never raises for bad input.
+Exit codes: 0 decoded without problems, 1 decoded with problems (a bad check byte, a
+field out of range), 2 unusable input (missing, empty, not hex, or no known layout).
+Never raises for bad input.
 """
 
 from __future__ import annotations
@@ -25,7 +26,8 @@ def decode_command(path: str | Path, as_json: bool = False) -> tuple[int, str]:
     except MapFileError as exc:
         return EXIT_UNREADABLE, f"cannot decode {exc}"
     m = decode(data)
-    code = EXIT_PROBLEMS if m.problems else EXIT_CLEAN
+    # Bytes that are no known layout are unusable input, not a map with problems.
+    code = EXIT_UNREADABLE if not m.spec else EXIT_PROBLEMS if m.problems else EXIT_CLEAN
     if as_json:
         doc = {"file": str(path), **to_json(m)}
         return code, json.dumps(doc, indent=2)

@@ -76,14 +76,17 @@ def credentials_from(credential: SnmpV2c | SnmpV3, ctx: BuildContext) -> SnmpCre
 def from_config(device: SnmpDevice, credential: SnmpV2c | SnmpV3, ctx: BuildContext,
                 settings: object = None) -> SnmpSource:
     """Build the source for one entry; engines are shared by every SNMP device."""
+    from lightwarden.collector.snmp.fast import SocketPool
     from lightwarden.collector.snmp.session import EnginePool
     from lightwarden.collector.snmp.source import SnmpSource
 
     engines = ctx.shared.get("snmp.engines", EnginePool, EnginePool.close)
+    sockets = ctx.shared.get("snmp.sockets", SocketPool, SocketPool.close)
     return SnmpSource(
         device.name, device.host, credentials_from(credential, ctx),
         port=device.port or 161,
         timeout=device.timeout_s or ctx.timeout_s,
         retries=device.retries if device.retries is not None else ctx.retries,
-        pmd_names=ctx.pmd_names, engines=engines, eeprom_oid=device.eeprom_oid,
+        pmd_names=ctx.pmd_names, engines=engines, sockets=sockets,
+        eeprom_oid=device.eeprom_oid,
     )

@@ -14,7 +14,7 @@ from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 
 from lightwarden.collector.readings import LANE_QUANTITIES, OpticIdentity, Quantity
-from lightwarden.collector.sensors import OTHER, classify_sensor
+from lightwarden.collector.sensors import LANE_TOTAL, OTHER, classify_sensor
 
 log = logging.getLogger(__name__)
 
@@ -45,6 +45,12 @@ ENT_ALIAS = "1.3.6.1.2.1.47.1.3.2.1.2"
 ENT_COLUMNS = (
     ENT_DESCR, ENT_CONTAINED_IN, ENT_CLASS, ENT_NAME, ENT_SERIAL, ENT_MFG, ENT_MODEL, ENT_ALIAS,
 )  # fmt: skip
+
+#: Read first at discovery: enough to find which entities are ports, modules and sensors.
+ENT_TREE_COLUMNS = (ENT_CLASS, ENT_CONTAINED_IN, ENT_ALIAS)
+#: Then only these rows: a module's descriptive columns, a port's or sensor's name.
+ENT_MODULE_ROW = (ENT_DESCR, ENT_NAME, ENT_SERIAL, ENT_MODEL)
+ENT_NAME_ROW = (ENT_NAME,)
 
 _SENSOR = "1.3.6.1.2.1.99.1.1.1"
 SENSOR_TYPE = _SENSOR + ".1"
@@ -229,10 +235,6 @@ def build_inventory(
                       names.get(ent_index))  # fmt: skip
             continue
         quantity, lane = found
-        if any(s.quantity == quantity and s.lane == lane for s in spec.sensors):
-            log.debug("%s: duplicate %s lane %d sensor entity %d ignored", device,
-                      quantity.label, lane, ent_index)  # fmt: skip
-            continue
         spec.sensors.append(
             SensorSpec(
                 ent_index=ent_index,
@@ -245,10 +247,82 @@ def build_inventory(
             )
         )
     for spec in optics.values():
-        spec.sensors.sort(key=lambda s: (int(s.quantity), s.lane))
-        lanes = [s.lane for s in spec.sensors if s.quantity in LANE_QUANTITIES]
-        spec.identity.lanes = max(lanes, default=1)
+        _number_lanes(spec)
     return Inventory(list(optics.values()), sys_uptime=sys_uptime, last_change=last_change)
+
+
+@dataclass(slots=True, frozen=True)
+class RowsToRead:
+    """Which entity rows discovery reads after the containment tree (see rows_to_read)."""
+
+    modules: tuple[int, ...]  # transceivers in a port: ENT_MODULE_ROW
+    named: tuple[int, ...]  # their ports and the sensors below them: ENT_NAME_ROW
+    sensors: tuple[int, ...]  # sensors below a transceiver: SENSOR_STATIC_COLUMNS
+
+
+def rows_to_read(tree: Table) -> RowsToRead:
+    """From entPhysicalClass and entPhysicalContainedIn, the rows worth reading.
+
+    A switch's entity table also holds chassis, fans, power supplies, line cards and
+    their sensors; only transceivers in ports, their ports and the sensors below them
+    (up to the same depth :func:`build_inventory` follows) matter to us.
+    """
+    classes = _column(tree, ENT_CLASS)
+    parent = _column(tree, ENT_CONTAINED_IN)
+    modules: dict[int, OpticSpec] = {}
+    ports: list[int] = []
+    for ent_index, ent_class in sorted(classes.items()):
+        port_entity = _int(parent.get(ent_index))
+        if ent_class == CLASS_MODULE and port_entity is not None and (
+                classes.get(port_entity) == CLASS_PORT):  # fmt: skip
+            modules[ent_index] = OpticSpec(OpticIdentity(device="", port=""))
+            ports.append(port_entity)
+    sensors = tuple(
+        ent_index for ent_index, ent_class in sorted(classes.items())
+        if ent_class == CLASS_SENSOR and _owning_optic(ent_index, parent, modules) is not None
+    )  # fmt: skip
+    return RowsToRead(tuple(modules), tuple(sorted(set(ports))) + sensors, sensors)
+
+
+def lane_map(raw: list[int]) -> dict[int, int]:
+    """Map the lane numbers one optic's sensors give to 1..N.
+
+    Devices number lanes from 0 or from 1 (and a breakout may give 5..8): a contiguous
+    block from any base becomes 1..N; numbers from 1 with gaps stay as they are (a
+    missing sensor must not shift the lanes after it).
+    """
+    found = sorted(set(raw))
+    if not found:
+        return {}
+    base = found[0]
+    contiguous = found[-1] - base + 1 == len(found)
+    shift = 1 - base if base == 0 or (base > 1 and contiguous) else 0
+    return {n: n + shift for n in found}
+
+
+def _number_lanes(spec: OpticSpec) -> None:
+    """Lanes to 1..N, totals to lane 0, and a duplicate lane made a visible problem."""
+    raw = [s.lane for s in spec.sensors if s.quantity in LANE_QUANTITIES and s.lane >= 0]
+    mapping = lane_map(raw)
+    kept: list[SensorSpec] = []
+    seen: dict[tuple[Quantity, int], SensorSpec] = {}
+    for s in sorted(spec.sensors, key=lambda s: s.ent_index):
+        if s.quantity in LANE_QUANTITIES:
+            s.lane = 0 if s.lane == LANE_TOTAL else mapping.get(s.lane, s.lane)
+        first = seen.get((s.quantity, s.lane))
+        if first is not None:
+            where = "all lanes" if s.lane == 0 and s.quantity in LANE_QUANTITIES else (
+                f"lane {s.lane}")
+            spec.identity.problems.append(
+                f"{s.quantity.label} {where} reported by two sensors (entities "
+                f"{first.ent_index} and {s.ent_index}); only the first is read")
+            continue
+        seen[(s.quantity, s.lane)] = s
+        kept.append(s)
+    kept.sort(key=lambda s: (int(s.quantity), s.lane))
+    spec.sensors = kept
+    lanes = [s.lane for s in kept if s.quantity in LANE_QUANTITIES]
+    spec.identity.lanes = max(lanes, default=1) or 1
 
 
 def _owning_optic(

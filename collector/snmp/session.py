@@ -7,6 +7,7 @@ message names the agent and what was being read, and never a secret.
 
 from __future__ import annotations
 
+import asyncio
 from collections.abc import Sequence
 from typing import Protocol
 
@@ -88,15 +89,24 @@ def plain(value: object, octets: bool = False) -> object:
     return value
 
 
+#: Requests outstanding at once per pysnmp engine. An engine has one client socket for
+#: every device it serves; more answers than its receive buffer holds (208 KiB by default,
+#: a discovery page is up to ~9 KB) are dropped there, not at the agents.
+ENGINE_OUTSTANDING = 16
+
+
 class EnginePool:
     """pysnmp engines shared between devices: one for all v2c, one per v3 credential set.
 
     Engines are tied to the event loop they first run on; make one pool per loop and
-    close it when done.
+    close it when done. Each engine comes with a limit on its requests outstanding
+    (``ENGINE_OUTSTANDING``), shared by every session on it.
     """
 
-    def __init__(self) -> None:
+    def __init__(self, outstanding: int = ENGINE_OUTSTANDING) -> None:
         self._engines: dict[str, SnmpEngine] = {}
+        self._limits: dict[str, asyncio.Semaphore] = {}
+        self.outstanding = outstanding
 
     def engine_for(self, credentials: SnmpCredentials) -> SnmpEngine:
         key = credentials.engine_key
@@ -105,6 +115,13 @@ class EnginePool:
             engine = self._engines[key] = SnmpEngine()
         return engine
 
+    def limit_for(self, credentials: SnmpCredentials) -> asyncio.Semaphore:
+        key = credentials.engine_key
+        limit = self._limits.get(key)
+        if limit is None:
+            limit = self._limits[key] = asyncio.Semaphore(self.outstanding)
+        return limit
+
     def __len__(self) -> int:
         return len(self._engines)
 
@@ -112,6 +129,7 @@ class EnginePool:
         for engine in self._engines.values():
             engine.close_dispatcher()
         self._engines.clear()
+        self._limits.clear()
 
 
 class SnmpSession:
@@ -127,8 +145,11 @@ class SnmpSession:
         timeout: float = 2.0,
         retries: int = 1,
         max_repetitions: int = 25,
+        limit: asyncio.Semaphore | None = None,
     ) -> None:
         self.engine = engine
+        # Shared with the engine's other sessions (EnginePool.limit_for).
+        self._limit = limit if limit is not None else asyncio.Semaphore(1)
         self.credentials = credentials
         self.host = host
         self.port = port
@@ -138,6 +159,7 @@ class SnmpSession:
         self._auth = credentials.auth_data()
         self._context = ContextData(contextName=credentials.context.encode())
         self._target: UdpTransportTarget | None = None
+        self.varbinds = 0  # varbinds received so far (for `lightwarden bench`)
 
     @property
     def where(self) -> str:
@@ -181,15 +203,17 @@ class SnmpSession:
     ) -> dict[str, object]:
         """GET the given instances; absent ones map to None. ``octets``: see :func:`plain`."""
         target = await self._get_target(what)
-        indication, status, index, varbinds = await get_cmd(
-            self.engine,
-            self._auth,
-            target,
-            self._context,
-            *(ObjectType(ObjectIdentity(oid)) for oid in oids),
-            lookupMib=False,
-        )
+        async with self._limit:
+            indication, status, index, varbinds = await get_cmd(
+                self.engine,
+                self._auth,
+                target,
+                self._context,
+                *(ObjectType(ObjectIdentity(oid)) for oid in oids),
+                lookupMib=False,
+            )
         self._check(indication, status, what, f" at varbind {int(index)}")
+        self.varbinds += len(varbinds)
         result: dict[str, object] = {oid: None for oid in oids}
         for requested, (_, value) in zip(oids, varbinds, strict=False):
             result[requested] = plain(value, octets)
@@ -226,17 +250,19 @@ class SnmpSession:
         for _ in range(MAX_WALK_REQUESTS):
             if not active:
                 return results
-            indication, status, _, varbinds = await bulk_cmd(
-                self.engine,
-                self._auth,
-                target,
-                self._context,
-                0,
-                self.max_repetitions,
-                *(ObjectType(ObjectIdentity(".".join(map(str, last[c])))) for c in active),
-                lookupMib=False,
-            )
+            async with self._limit:
+                indication, status, _, varbinds = await bulk_cmd(
+                    self.engine,
+                    self._auth,
+                    target,
+                    self._context,
+                    0,
+                    self.max_repetitions,
+                    *(ObjectType(ObjectIdentity(".".join(map(str, last[c])))) for c in active),
+                    lookupMib=False,
+                )
             self._check(indication, status, what)
+            self.varbinds += len(varbinds)
             if not varbinds:
                 return results
             finished: set[str] = set()

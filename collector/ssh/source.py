@@ -37,7 +37,12 @@ from netmiko.no_config import NoConfig
 from netmiko.no_enable import NoEnable
 
 from lightwarden.collector.eeprom.hexdump import HexDumpError, parse_hexdump
-from lightwarden.collector.map_facts import MapFacts, apply_map_facts, facts_from_map
+from lightwarden.collector.map_facts import (
+    MapFacts,
+    apply_map_facts,
+    facts_from_map,
+    stale_maps,
+)
 from lightwarden.collector.readings import PollErrorKind, PollOutcome, ReadingBatch
 from lightwarden.collector.ssh.cli_parse import parse_outputs
 from lightwarden.collector.ssh.platforms.platform import Platform
@@ -233,6 +238,7 @@ class SshSource:
         self.read_maps = read_maps and platform.eeprom is not None
         #: (port, serial) -> facts from that module's map
         self._maps: dict[tuple[str, str], MapFacts] = {}
+        self._map_read_at: dict[tuple[str, str], float] = {}
         self.map_reads = 0  # memory maps asked of the device so far
 
     def __repr__(self) -> str:
@@ -274,7 +280,8 @@ class SshSource:
 
     async def _apply_maps(self, batch: ReadingBatch) -> None:
         keys = {o.port: (o.port, o.serial.strip()) for o in batch.optics}
-        missing = [port for port, key in keys.items() if key not in self._maps]
+        stale = set(stale_maps(self._maps, self._map_read_at, batch.taken_at, keys.values()))
+        missing = [port for port, key in keys.items() if key in stale]
         if missing:
             assert self.platform.eeprom is not None
             commands = {port: self.platform.eeprom.command.format(port=port) for port in missing}
@@ -287,8 +294,10 @@ class SshSource:
                 self.map_reads += len(missing)
                 for port, command in commands.items():
                     self._maps[keys[port]] = self._facts(command, texts.get(command, ""))
+                    self._map_read_at[keys[port]] = batch.taken_at
             for key in [k for k in self._maps if k not in keys.values()]:
                 del self._maps[key]  # modules no longer fitted
+                self._map_read_at.pop(key, None)
         apply_map_facts(batch, {port: self._maps[key] for port, key in keys.items()
                                 if key in self._maps})
 

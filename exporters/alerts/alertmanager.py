@@ -64,8 +64,23 @@ def to_alertmanager(
         "endsAt": rfc3339(ends),
     }
     if generator_url:
-        alert["generatorURL"] = generator_url
+        alert["generatorURL"] = optic_url(generator_url, event)
     return alert
+
+
+def optic_url(template: str, event: AlertEvent) -> str:
+    """The alert's link: ``template`` with {device}, {port}, {lane}, {quantity} filled in
+    (URL-quoted), e.g. ``http://mon:9817/optic/{device}/{port}?lane={lane}``; a template
+    without placeholders is used as it is."""
+    from urllib.parse import quote
+
+    # A link finding's link goes to its (A end) optic; it has no lane or quantity.
+    fields = {"device": event.device, "port": event.port, "lane": str(event.lane),
+              "quantity": "" if event.quantity is None else event.quantity.label}
+    out = template
+    for name, value in fields.items():
+        out = out.replace("{" + name + "}", quote(value, safe=""))
+    return out
 
 
 def latest_per_key(events: Sequence[AlertEvent]) -> list[AlertEvent]:

@@ -24,6 +24,14 @@ def alert_labels(event: AlertEvent, static: dict[str, str] | None = None) -> dic
     same label set so Alertmanager keeps one alert.
     """
     labels = dict(static or {})
+    if event.finding or event.quantity is None:
+        # A link finding: the same labels as the generated rule's (alert_rules.py).
+        # An empty far end is left out: Prometheus has no empty-valued labels.
+        labels.update(alertname=event.alertname, severity=event.severity.value,
+                      device=event.device, port=event.port, kind=event.finding)
+        if event.far_device:
+            labels.update(far_device=event.far_device, far_port=event.far_port)
+        return labels
     labels.update(
         alertname=event.alertname,
         severity=event.severity.value,
@@ -47,21 +55,27 @@ def _rate_unit(unit: str) -> str:
 def describe(event: AlertEvent) -> str:
     """One line with the numbers behind the alert: value, edge, window source, margin, rate."""
     parts: list[str] = []
+    if event.quantity is None or event.condition is None:
+        far = f" facing {event.far_device} {event.far_port}" if event.far_device else ""
+        return f"{event.finding} on {event.device} {event.port}{far}"
     quantity, source = event.quantity.label, event.window_source.word
     value = _num(event.value)
+    # Optical levels to 0.1 dB (the resolution a reading is worth); volts to 0.01 V.
+    prec = 2 if event.unit == "V" else 1
     parts.append(
-        f"{quantity} {value:.2f} {event.unit}"
+        f"{quantity} {value:.{prec}f} {event.unit}"
         if value is not None
         else f"{quantity} has no usable value"
     )
     edge = _num(event.edge_value)
+    name = event.edge_name.replace("_", " ")
     if edge is not None:
-        parts.append(f"{event.edge_name} edge {edge:.2f} {event.unit} (window from {source})")
+        parts.append(f"{name} edge {edge:.{prec}f} {event.unit} (from {source})")
     elif event.edge_name:
-        parts.append(f"{event.edge_name} edge unknown (window from {source})")
+        parts.append(f"{name} edge unknown (from {source})")
     margin = _num(event.margin_db)
     if margin is not None:
-        parts.append(f"margin {margin:.2f} dB")
+        parts.append(f"margin {margin:.1f} dB")
     rate = _num(event.rate_per_day)
     if rate is not None:
         parts.append(f"moving {rate:+.2f} {_rate_unit(event.unit)}")

@@ -16,27 +16,36 @@ from lightwarden.exporters.alerts.outbox import Outbox, OutboxError
 from lightwarden.exporters.app.config import ConfigError, SiteConfig
 from lightwarden.rules.findings import AlertEvent
 from lightwarden.rules.lifecycle import AlertLifecycle
+from lightwarden.rules.link_alerts import LinkAlerts
 
 log = logging.getLogger("lightwarden.alerting")
 
 LIFECYCLE_STATE = "lifecycle"
+LINK_ALERTS_STATE = "link-alerts"
 
 
 class AlertRunner:
     """Hands each poll's events to delivery and saves the lifecycle beside them."""
 
-    def __init__(self, lifecycle: AlertLifecycle, outbox: Outbox, dispatcher: Dispatcher) -> None:
+    def __init__(self, lifecycle: AlertLifecycle, outbox: Outbox, dispatcher: Dispatcher,
+                 links: LinkAlerts | None = None) -> None:
         self.lifecycle = lifecycle
         self.outbox = outbox
         self.dispatcher = dispatcher
+        self.links = links
+
+    def _save(self) -> None:
+        self.outbox.save_state(LIFECYCLE_STATE, self.lifecycle.snapshot())
+        if self.links is not None:
+            self.outbox.save_state(LINK_ALERTS_STATE, self.links.to_dict())
 
     def submit(self, events: list[AlertEvent]) -> None:
         self.dispatcher.submit(events)
-        self.outbox.save_state(LIFECYCLE_STATE, self.lifecycle.snapshot())
+        self._save()
 
     def stop(self, drain_timeout: float = 5.0) -> None:
         self.dispatcher.stop(drain_timeout)
-        self.outbox.save_state(LIFECYCLE_STATE, self.lifecycle.snapshot())
+        self._save()
         self.outbox.close()
 
 
@@ -59,7 +68,7 @@ def destinations(cfg: SiteConfig, base_dir: Path) -> list[AlertDestination]:
 
 
 def start_alerting(lifecycle: AlertLifecycle, cfg: SiteConfig,
-                   base_dir: Path) -> AlertRunner | None:
+                   base_dir: Path, links: LinkAlerts | None = None) -> AlertRunner | None:
     """Restore the lifecycle's saved state and start delivery; None when no destination
     is configured."""
     dests = destinations(cfg, base_dir)
@@ -72,6 +81,7 @@ def start_alerting(lifecycle: AlertLifecycle, cfg: SiteConfig,
         path.parent.mkdir(parents=True, exist_ok=True)
         outbox = Outbox(path)
         saved = outbox.load_state(LIFECYCLE_STATE)
+        saved_links = outbox.load_state(LINK_ALERTS_STATE) if links is not None else None
     except (OSError, OutboxError) as exc:
         raise ConfigError(f"alerting.outbox_path {path}: {exc}") from None
     if saved is not None:
@@ -80,10 +90,15 @@ def start_alerting(lifecycle: AlertLifecycle, cfg: SiteConfig,
         except ValueError as exc:
             # A damaged snapshot must not stop monitoring: start afresh, keep the file.
             log.warning("alert state in %s not restored: %s", path, exc)
+    if links is not None and saved_links is not None:
+        try:
+            links.load(saved_links)
+        except ValueError as exc:
+            log.warning("link alert state in %s not restored: %s", path, exc)
     try:
         dispatcher = Dispatcher(outbox, dests, resend_interval_s=cfg.alerting.resend_interval_s)
     except ValueError as exc:
         raise ConfigError(f"alerting: {exc}") from None
-    runner = AlertRunner(lifecycle, outbox, dispatcher)
+    runner = AlertRunner(lifecycle, outbox, dispatcher, links)
     dispatcher.start()
     return runner

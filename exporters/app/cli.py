@@ -73,18 +73,29 @@ def run_check(monitor: Monitor, as_json: bool) -> int:
         if v.assessment is None:
             failures.append(failed_device_row(v.outcome))
         else:
-            rows.extend(optic_rows(v.assessment, monitor.targets))
+            rows.extend(optic_rows(v.assessment, monitor.targets, v.contexts, v.links))
     worst_first(rows, monitor.targets)
+    links = monitor.link_issues()
     if as_json:
-        doc: Any = [r.as_json() for r in rows]
+        from lightwarden.exporters.pages.status import finding_json
+
+        # Each row carries the consistency findings of its port (a span's: at both ends).
+        of_port: dict[tuple[str, str], list[dict[str, object]]] = {}
+        for lf in links:
+            for end in {(lf.device, lf.port), (lf.far_device, lf.far_port)}:
+                of_port.setdefault(end, []).append(finding_json(lf))
+        doc: Any = [r.as_json() | {"findings": of_port.get((r.device, r.port), [])}
+                    for r in rows]
         print(json.dumps(doc, indent=2))
         for f in failures:
             print(f"error: {f['device']}: {f['error']}", file=sys.stderr)
     else:
-        print(render_check_table(rows, failures))
+        print(render_check_table(rows, failures, links))
     if failures:
         return EXIT_ERROR
-    return EXIT_FINDINGS if any(r.severity >= Severity.WARNING for r in rows) else EXIT_OK
+    bad = any(r.severity >= Severity.WARNING for r in rows) or any(
+        lf.severity >= Severity.WARNING for lf in links)
+    return EXIT_FINDINGS if bad else EXIT_OK
 
 
 async def _poll_and_close(monitor: Monitor) -> list[Any]:
@@ -123,8 +134,26 @@ def _adhoc_config(args: argparse.Namespace) -> SiteConfig:
 
     data = {"site": "adhoc", "credentials": {"adhoc": cred},
             "poll": {"timeout_s": args.timeout, "retries": args.retries},
-            "devices": [{"name": host, "host": host, "port": port_n, "credentials": "adhoc"}]}
+            "devices": [{"name": host, "host": host, "port": port_n, "credentials": "adhoc",
+                         **({"eeprom_oid": args.eeprom_oid} if args.eeprom_oid else {})}]}
     return parse_config(yaml.safe_dump(data), "(command line)")
+
+
+def cmd_bench_poll(args: argparse.Namespace) -> int:
+    from lightwarden.collector.snmp.source import SnmpSource
+    from lightwarden.exporters.app.bench import BenchError, run_bench_poll
+    from lightwarden.exporters.app.wiring import build_monitor
+
+    monitor = build_monitor(_adhoc_config(args), base_dir=Path.cwd(), alerts=False)
+    (source,) = monitor.build_sources()
+    if not isinstance(source, SnmpSource):
+        monitor.close()
+        raise UsageError("bench poll reads SNMP devices only")
+    try:
+        print(run_bench_poll(source, args.cycles, args.json, monitor.close))
+    except BenchError as exc:
+        raise UsageError(str(exc)) from None
+    return EXIT_OK
 
 
 def cmd_check(args: argparse.Namespace) -> int:
@@ -158,15 +187,21 @@ def cmd_validate(args: argparse.Namespace) -> int:
 
 def cmd_run(args: argparse.Namespace) -> int:
     from lightwarden.exporters.app.runtime import Service
-    from lightwarden.exporters.app.wiring import build_monitor
+    from lightwarden.exporters.app.wiring import as_instance, build_monitor
 
     cfg, base = _load(args.config)
+    if args.shard_index is not None:
+        cfg = as_instance(cfg, args.shard_index, args.listen_port)
+    elif args.listen_port is not None:
+        cfg = cfg.model_copy(update={"listen": cfg.listen.model_copy(
+            update={"port": args.listen_port})})  # fmt: skip
     monitor = build_monitor(cfg, base_dir=base)
     monitor.build_sources()
     monitor.open_history()
     service = Service(monitor, cfg, base)
-    print(f"lightwarden: {len(cfg.devices)} devices; metrics at {service.url}/metrics",
-          flush=True)
+    shard = f" (shard {cfg.shard.index} of {cfg.shard.count})" if cfg.shard.count > 1 else ""
+    print(f"lightwarden: {len(monitor.sources)} of {len(cfg.devices)} devices{shard}; "
+          f"metrics at {service.url}/metrics", flush=True)
     service.serve()
     return EXIT_OK
 
@@ -392,6 +427,24 @@ def _port(text: str) -> int:
 
 
 
+def _target_args(p: argparse.ArgumentParser) -> None:
+    """Credentials and timing for one ad hoc SNMP device (check HOST, bench poll HOST)."""
+    p.add_argument("--community", help="SNMP v2c community (visible to other local users; "
+                   "prefer --community-env)")
+    p.add_argument("--community-env", metavar="VAR", help="read the community from VAR")
+    p.add_argument("--v3-user", metavar="USER", help="SNMPv3 user (authPriv)")
+    p.add_argument("--auth-protocol", default="SHA-256",
+                   choices=["SHA", "SHA-224", "SHA-256", "SHA-384", "SHA-512"])
+    p.add_argument("--priv-protocol", default="AES-128", choices=["AES-128", "AES-192", "AES-256"])
+    p.add_argument("--auth-key-env", default="LIGHTWARDEN_SNMP_AUTH_KEY", metavar="VAR")
+    p.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR")
+    p.add_argument("--eeprom-oid", metavar="OID",
+                   help="also read each module's memory map from this column (OID of a "
+                        "table indexed by ifIndex), as a configured device's eeprom_oid does")
+    p.add_argument("--timeout", type=float, default=2.0, help="seconds per SNMP request")
+    p.add_argument("--retries", type=int, default=1)
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="lightwarden",
@@ -420,24 +473,28 @@ def build_parser() -> argparse.ArgumentParser:
 
     r = sub.add_parser("run", help="the monitor daemon")
     r.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
+    r.add_argument("--shard-index", type=int, metavar="N",
+                   help="run as shard instance N of shard.count (overrides shard.index; "
+                        "listens on listen.port + N unless --listen-port is given)")
+    r.add_argument("--listen-port", type=int, metavar="PORT",
+                   help="listen on PORT (overrides listen.port)")
     r.set_defaults(func=cmd_run)
 
     c = sub.add_parser("check", help="poll every device once and print each optic")
     c.add_argument("-c", "--config", metavar="SITE.yaml")
     c.add_argument("target", nargs="?", metavar="HOST[:PORT]", help="one SNMP device, ad hoc")
     c.add_argument("--json", action="store_true", help="print a JSON array")
-    c.add_argument("--community", help="SNMP v2c community (visible to other local users; "
-                   "prefer --community-env)")
-    c.add_argument("--community-env", metavar="VAR", help="read the community from VAR")
-    c.add_argument("--v3-user", metavar="USER", help="SNMPv3 user (authPriv)")
-    c.add_argument("--auth-protocol", default="SHA-256",
-                   choices=["SHA", "SHA-224", "SHA-256", "SHA-384", "SHA-512"])
-    c.add_argument("--priv-protocol", default="AES-128", choices=["AES-128", "AES-192", "AES-256"])
-    c.add_argument("--auth-key-env", default="LIGHTWARDEN_SNMP_AUTH_KEY", metavar="VAR")
-    c.add_argument("--priv-key-env", default="LIGHTWARDEN_SNMP_PRIV_KEY", metavar="VAR")
-    c.add_argument("--timeout", type=float, default=2.0, help="seconds per SNMP request")
-    c.add_argument("--retries", type=int, default=1)
+    _target_args(c)
     c.set_defaults(func=cmd_check)
+
+    b = sub.add_parser("bench", help="measure what polling costs this process")
+    bsub = b.add_subparsers(dest="bench_command", required=True)
+    bp = bsub.add_parser("poll", help="discover one SNMP device, then poll it N times")
+    bp.add_argument("target", metavar="HOST[:PORT]")
+    _target_args(bp)
+    bp.add_argument("--cycles", type=int, default=10, metavar="N", help="steady polls")
+    bp.add_argument("--json", action="store_true", help="print JSON")
+    bp.set_defaults(func=cmd_bench_poll)
 
     v = sub.add_parser("validate", help="check a site config without polling")
     v.add_argument("-c", "--config", required=True, metavar="SITE.yaml")
@@ -476,6 +533,13 @@ def build_parser() -> argparse.ArgumentParser:
     ru = sub.add_parser("rules", help="write Prometheus alerting rules for our metrics")
     rules_parser(ru)
     ru.set_defaults(func=cmd_rules)
+
+    from lightwarden.exporters.pages.budget import build_parser as budget_parser
+    from lightwarden.exporters.pages.budget import run as budget_run
+
+    bu = sub.add_parser("budget", help="power budget of a planned link: will it close, which pad")
+    budget_parser(bu)
+    bu.set_defaults(func=budget_run)
     return p
 
 

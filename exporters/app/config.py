@@ -77,6 +77,8 @@ class Poll(_Model):
     timeout_s: float = Field(default=2.0, gt=0)
     retries: int = Field(default=1, ge=0, le=10)
     max_backoff_s: float = Field(default=900.0, gt=0)
+    #: polls running at once across all devices; the rest wait for a slot
+    max_in_flight: int = Field(default=64, ge=1, le=10_000)
     ssh_threads: int = Field(default=16, ge=1, le=256)
     ssh_per_device: int = Field(default=1, ge=1, le=8)
 
@@ -150,6 +152,18 @@ class PmdAddition(_Model):
     rx_overload_dbm: float
     rx_min_avg_dbm: float
     source: str = "site"
+    # Optional PMD-table columns (rules/README.md "The PMD table").
+    clause: str = ""
+    fibre: Literal["smf", "mmf"] | None = None
+    reach_om1_m: float | None = Field(default=None, gt=0)
+    reach_om2_m: float | None = Field(default=None, gt=0)
+    reach_om3_m: float | None = Field(default=None, gt=0)
+    reach_om4_m: float | None = Field(default=None, gt=0)
+    reach_engineered_m: float | None = Field(default=None, gt=0)
+    tx_oma_min_dbm: float | None = None
+    rx_sens_oma_dbm: float | None = None
+    er_min_db: float | None = Field(default=None, gt=0)
+    oma_clause: str = ""
 
 
 class Span(_Model):
@@ -164,6 +178,8 @@ class Span(_Model):
     pad_db: float = Field(default=0.0, ge=0)
     #: the wavelength the loss is judged at; default: the middle of the optics' PMD band
     wavelength_nm: float | None = Field(default=None, gt=0)
+    #: mode-conditioning patch cords at both ends (1000BASE-LX over multimode, cl.38)
+    mode_conditioning: bool = False
 
 
 class Destination(_Model):

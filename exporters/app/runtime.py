@@ -43,6 +43,7 @@ def scheduler(monitor: Monitor, cfg: SiteConfig) -> PollScheduler:
         on_outcome=monitor.handle,
         clock=monitor.clock,
         backoff_cap_s=cfg.poll.max_backoff_s,
+        max_in_flight=cfg.poll.max_in_flight,
     )
     by_name = {d.name: d for d in cfg.devices}
     for s in monitor.sources:
@@ -70,7 +71,8 @@ class Service:
         self.cfg = cfg
         self.server = start_http(monitor, cfg.listen.host, cfg.listen.port)
         try:
-            self.alerting: AlertRunner | None = start_alerting(monitor.lifecycle, cfg, base_dir)
+            self.alerting: AlertRunner | None = start_alerting(monitor.lifecycle, cfg, base_dir,
+                                                               monitor.link_alerts)
         except BaseException:
             self.server.stop()
             raise

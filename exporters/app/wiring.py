@@ -32,7 +32,7 @@ def build_catalogue(cfg: SiteConfig) -> Catalogue:
     return base.with_additions(
         PmdSpec(
             name=a.name,
-            clause="",
+            clause=a.clause,
             wavelength_min_nm=a.wavelength_min_nm,
             wavelength_max_nm=a.wavelength_max_nm,
             reach_m=a.reach_m,
@@ -42,6 +42,16 @@ def build_catalogue(cfg: SiteConfig) -> Catalogue:
             rx_overload_dbm=a.rx_overload_dbm,
             rx_min_avg_dbm=a.rx_min_avg_dbm,
             source=a.source,
+            fibre=a.fibre or "",
+            reach_om1_m=a.reach_om1_m,
+            reach_om2_m=a.reach_om2_m,
+            reach_om3_m=a.reach_om3_m,
+            reach_om4_m=a.reach_om4_m,
+            reach_engineered_m=a.reach_engineered_m,
+            tx_oma_min_dbm=a.tx_oma_min_dbm,
+            rx_sens_oma_dbm=a.rx_sens_oma_dbm,
+            er_min_db=a.er_min_db,
+            oma_clause=a.oma_clause,
         )
         for a in cfg.pmd_additions
     )
@@ -116,12 +126,39 @@ def plant_of(cfg: SiteConfig, catalogue: Catalogue,
 
 
 def my_devices(cfg: SiteConfig) -> list[Device]:
-    """The configured devices this instance polls (all, unless the site is sharded)."""
+    """The configured devices this instance polls (all, unless the site is sharded).
+
+    Devices joined by plant spans stay on one instance (see shard.py).
+    """
     sh = cfg.shard
     if sh.count == 1:
         return list(cfg.devices)
-    names = set(mine([d.name for d in cfg.devices], sh.index, sh.count))
+    links = [(span.a.split()[0], span.b.split()[0]) for span in cfg.plant]
+    names = set(mine([d.name for d in cfg.devices], sh.index, sh.count, links))
     return [d for d in cfg.devices if d.name in names]
+
+
+def as_instance(cfg: SiteConfig, index: int, listen_port: int | None = None) -> SiteConfig:
+    """The config of shard instance ``index`` (``run --shard-index``, one per core).
+
+    Overrides ``shard.index``; the instance listens on ``listen.port + index`` unless
+    ``listen_port`` is given (or the base port is 0, "any free port"), so instances on one
+    host never collide and Prometheus scrapes each at its own port.
+    """
+    count = cfg.shard.count
+    if not 0 <= index < count:
+        raise ConfigError(f"--shard-index {index} must be from 0 to shard.count - 1 "
+                          f"({count - 1}); set shard.count in the site config")  # fmt: skip
+    port = listen_port if listen_port is not None else cfg.listen.port
+    if listen_port is None and port:
+        port += index
+        if port > 65535:
+            raise ConfigError(f"listen.port {cfg.listen.port} + shard index {index} is "
+                              "above 65535")  # fmt: skip
+    return cfg.model_copy(update={
+        "shard": cfg.shard.model_copy(update={"index": index}),
+        "listen": cfg.listen.model_copy(update={"port": port}),
+    })  # fmt: skip
 
 
 def open_history(cfg: SiteConfig, base_dir: Path) -> History | None:
@@ -147,6 +184,16 @@ def make_sources(cfg: SiteConfig, base_dir: Path, catalogue: Catalogue,
     return build_sources(cfg, my_devices(cfg), ctx)
 
 
+def fibre_of(cfg: SiteConfig) -> dict[tuple[str, str], str]:
+    """The plant's fibre at each recorded port: which row of a PMD judges its optic."""
+    out: dict[tuple[str, str], str] = {}
+    for sp in cfg.plant:
+        for end in (sp.a, sp.b):
+            device, port = end.split()
+            out[(device, port)] = sp.fibre
+    return out
+
+
 def build_monitor(
     cfg: SiteConfig,
     *,
@@ -163,7 +210,7 @@ def build_monitor(
     parts = MonitorParts(
         site=cfg.site,
         catalogue=catalogue,
-        resolver=WindowResolver(catalogue, build_overrides(cfg)),
+        resolver=WindowResolver(catalogue, build_overrides(cfg), fibre_of=fibre_of(cfg)),
         targets=targets,
         tracker=ConditionTracker(hysteresis_policy(cfg)),
         lifecycle=lifecycle or AlertLifecycle(lifecycle_config(cfg, targets)),

@@ -10,13 +10,15 @@ import json
 import time
 from html import escape
 
+from lightwarden.exporters.pages.budget import mount as mount_budget
 from lightwarden.exporters.pages.http import HttpRequest, HttpServer, Response
 from lightwarden.exporters.pages.report import build_report, render_report, report_json
 from lightwarden.exporters.pages.report_html import render_html
 from lightwarden.exporters.pages.rows import OpticRow, optic_rows, worst_first
 from lightwarden.exporters.pages.view import MonitorView
 from lightwarden.rules.advice import LASER_CAUTION
-from lightwarden.rules.findings import AlertSeverity, Severity
+from lightwarden.rules.consistency import Finding
+from lightwarden.rules.findings import AlertEvent, AlertSeverity, Severity
 from lightwarden.rules.outlook import PlannerReport
 
 #: Row colour per rung of the one severity order (alerts and link issues use it too).
@@ -42,6 +44,7 @@ class StatusPage:
         server.add_route("/report", self.report_text)
         server.add_route("/report.html", self.report_html)
         server.add_route("/api/report", self.report_api)
+        mount_budget(server)
 
     def rows(self) -> tuple[list[OpticRow], list[dict[str, object]]]:
         rows: list[OpticRow] = []
@@ -52,7 +55,8 @@ class StatusPage:
                             "error": o.error, "error_kind": o.error_kind,
                             "polled_at": o.started_at})
             if view.assessment is not None:
-                rows.extend(optic_rows(view.assessment, self.monitor.targets))
+                rows.extend(optic_rows(view.assessment, self.monitor.targets, view.contexts,
+                                       view.links))
         worst_first(rows, self.monitor.targets)
         return rows, devices
 
@@ -60,12 +64,14 @@ class StatusPage:
         rows, devices = self.rows()
         alerts = [
             {"alertname": a.alertname, "severity": a.severity.value, "device": a.device,
-             "port": a.port, "lane": a.lane, "quantity": a.quantity.label, "summary": a.summary,
+             "port": a.port, "lane": a.lane,
+             "quantity": "" if a.quantity is None else a.quantity.label, "summary": a.summary,
              "advice": a.advice, "caution": a.caution}
+            | ({"kind": a.finding, "far_device": a.far_device, "far_port": a.far_port}
+               if a.finding else {})
             for a in self.monitor.open_alerts()
         ]
-        links = [{"kind": i.kind, "severity": i.severity.value, "text": i.text}
-                 for i in self.monitor.link_issues()]
+        links = [finding_json(i) for i in self.monitor.link_issues()]
         doc = {"devices": devices, "optics": [r.as_json() for r in rows], "alerts": alerts,
                "links": links}
         return 200, "application/json", json.dumps(doc).encode()
@@ -126,22 +132,27 @@ class StatusPage:
                 out.append(
                     f"<tr class={_alert_class(a.severity)}>"
                     f"<td class=l>{escape(a.alertname)}</td>"
-                    f"<td class=l>{escape(a.device)} {escape(a.port)} lane {a.lane}</td>"
+                    f"<td class=l>{escape(_where(a))}</td>"
                     f"<td class=l>{escape(a.summary)}</td><td class=l>{escape(a.advice)}</td>"
                     "</tr>"
                 )
             out.append("</table>")
         links = self.monitor.link_issues()
         if links:
-            out.append("<h2>Links whose ends do not match</h2><ul>")
-            out += [f"<li class={_alert_class(i.severity)}>"
-                    f"{escape(i.text)}</li>" for i in links]
-            out.append("</ul>")
+            out.append("<h2>Optics and plant that do not belong together</h2><table><tr>"
+                       "<th class=l>finding</th><th class=l>severity</th><th class=l>what</th>"
+                       "<th class=l>advice</th></tr>")
+            out += [f"<tr class={_CLASS[i.severity]}><td class=l>{escape(i.kind.value)}</td>"
+                    f"<td class=l>{escape(i.severity.word)}</td>"
+                    f"<td class=l>{escape(i.text)}</td><td class=l>{escape(i.advice)}</td></tr>"
+                    for i in links]
+            out.append("</table>")
         out.append(
             "<h2>Optics</h2><table><tr><th class=l>device</th><th class=l>port</th>"
             "<th>lane</th><th class=l>PMD</th><th>Rx dBm</th><th>Tx dBm</th><th>bias mA</th>"
             "<th>temp °C</th><th>overload</th><th>sensitivity</th><th>to overload dB</th>"
-            "<th>to sensitivity dB</th><th class=l>window</th><th class=l>condition</th>"
+            "<th>to sensitivity dB</th><th class=l>edges from</th>"
+            "<th class=l>module levels (Rx)</th><th class=l>condition</th>"
             "<th class=l>notes</th></tr>"
         )
         for r in rows:
@@ -153,14 +164,67 @@ class StatusPage:
                     r.rx_power_dbm, r.tx_power_dbm, r.bias_ma, r.temperature_c,
                     r.rx_overload_dbm, r.rx_sensitivity_dbm, r.margin_to_overload_db,
                     r.margin_to_sensitivity_db))
-                + f"<td class=l>{escape(r.window_source)}</td>"
-                f"<td class=l>{escape(r.condition)}</td>"
-                f"<td class=l>{escape('; '.join(r.value_notes))}</td></tr>"
+                + f"<td class=l>{escape(_edge_sources(r))}</td>"
+                f"<td class=l>{escape(_levels(r))}</td>"
+                f"<td class=l>{escape(_condition(r))}</td>"
+                f"<td class=l>{escape('; '.join(r.notes))}</td></tr>"
             )
         out.append("</table>")
         out.append(f"<p class=caution>{escape(LASER_CAUTION)}</p>")
         out.append("</body></html>")
         return 200, "text/html; charset=utf-8", "".join(out).encode()
+
+
+def finding_json(f: Finding) -> dict[str, object]:
+    """One consistency finding as the JSON API and `check --json` show it."""
+    return {"kind": f.kind.value, "severity": f.severity.word, "device": f.device,
+            "port": f.port, "far_device": f.far_device, "far_port": f.far_port,
+            "text": f.text, "advice": f.advice, "caution": LASER_CAUTION}
+
+
+def _where(a: AlertEvent) -> str:
+    if a.quantity is None:
+        far = f" / {a.far_device} {a.far_port}" if a.far_device else ""
+        return f"{a.device} {a.port}{far}"
+    return f"{a.device} {a.port} lane {a.lane}"
+
+
+def _edge_sources(r: OpticRow) -> str:
+    """Who declared the margin edges, e.g. "standard" or "sensitivity site, overload
+    standard"."""
+    lo = r.rx_edges.get("sensitivity", {}).get("source")
+    hi = r.rx_edges.get("overload", {}).get("source")
+    if lo == hi:
+        return str(lo or r.window_source)
+    return f"sensitivity {lo or '–'}, overload {hi or '–'}"
+
+
+def _levels(r: OpticRow) -> str:
+    """The declared Rx levels beside the margin edges: "alarm -18.0/+2.5, warning
+    -16.0/+0.5 (module)"."""
+    e = r.rx_edges
+    parts, sources = [], set()
+    for word, lo, hi in (("alarm", "low_alarm", "high_alarm"),
+                         ("warning", "low_warning", "high_warning")):
+        if lo in e or hi in e:
+            parts.append(f"{word} {_lv(e.get(lo))}/{_lv(e.get(hi))}")
+            sources |= {str(x["source"]) for x in (e.get(lo), e.get(hi)) if x}
+    if not parts:
+        return "–"
+    return ", ".join(parts) + f" ({', '.join(sorted(sources))})"
+
+
+def _lv(edge: dict[str, object] | None) -> str:
+    v = edge.get("value") if edge else None
+    return f"{v:+.1f}" if isinstance(v, float) else "–"
+
+
+def _condition(r: OpticRow) -> str:
+    """The condition, with the edge it is about and who declared it."""
+    e = r.edge
+    if not e or r.condition == "healthy":
+        return r.condition
+    return f"{r.condition} ({e.get('source')} {str(e.get('name', '')).replace('_', ' ')})"
 
 
 def _n(v: float | None) -> str:

@@ -2,15 +2,40 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 from lightwarden.exporters.pages.rows import OpticRow
+from lightwarden.rules.advice import LASER_CAUTION
+from lightwarden.rules.consistency import Finding
 
 
 def _fmt(v: float | None, width: int, prec: int = 2) -> str:
     return f"{'-':>{width}}" if v is None else f"{v:>{width}.{prec}f}"
 
 
-def render_check_table(rows: list[OpticRow], failures: list[dict[str, object]]) -> str:
-    """One line per optic lane, then failed devices, then what to do and the caution."""
+def _grouped_notes(rows: list[OpticRow], shown: int = 4) -> list[str]:
+    """Every note once, with where it applies: healthy rows' notes (OMA, a bad check byte,
+    a module looser than the standard) matter too, and one note often covers many lanes."""
+    where: dict[str, list[str]] = {}
+    for r in rows:
+        for note in r.notes:
+            if note in r.value_notes:
+                continue  # already beside the row
+            places = where.setdefault(note, [])
+            place = f"{r.device} {r.port}" + (f" lane {r.lane}" if r.lane > 1 else "")
+            if place not in places:
+                places.append(place)
+    out = []
+    for note, places in where.items():
+        more = f" and {len(places) - shown} more" if len(places) > shown else ""
+        out.append(f"  {note} ({', '.join(places[:shown])}{more})")
+    return out
+
+
+def render_check_table(rows: list[OpticRow], failures: list[dict[str, object]],
+                       links: Sequence[Finding] = ()) -> str:
+    """One line per optic lane, then failed devices, then the consistency findings, then
+    what to do and the caution."""
     head = (f"{'DEVICE':<12} {'PORT':<7} {'L':>1} {'PMD':<13} {'RX dBm':>7} {'TX dBm':>7} "
             f"{'BIAS mA':>7} {'TEMP C':>6} {'VCC V':>5} {'OVLD':>6} {'SENS':>6} "
             f"{'M-OVLD':>6} {'M-SENS':>6} {'SOURCE':<9} CONDITION")
@@ -27,12 +52,23 @@ def render_check_table(rows: list[OpticRow], failures: list[dict[str, object]]) 
         )
     for f in failures:
         out.append(f"{f['device']:<12} poll failed ({f['error_kind']}): {f['error']}")
+    if links:
+        out += ["", "Optics and plant that do not belong together:"]
+        for lf in links:
+            out += [f"  {lf.severity.word:<8} {lf.kind.value}: {lf.text}",
+                    f"           {lf.advice}"]
+    notes = _grouped_notes(rows)
+    if notes:
+        out += ["", "Notes:"]
+        out += notes
     advised = [r for r in rows if r.advice]
+    caution = next((r.caution for r in advised if r.caution), "")
+    if links and not caution:
+        caution = LASER_CAUTION  # the findings' advice means fitting or swapping optics
     if advised:
         out += ["", "What to do:"]
         out += [f"  {r.device} {r.port} lane {r.lane} ({r.condition}): {r.advice}"
                 for r in advised]
-        caution = next((r.caution for r in advised if r.caution), "")
-        if caution:
-            out += ["", caution]
+    if caution:
+        out += ["", caution]
     return "\n".join(out)

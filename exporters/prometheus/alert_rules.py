@@ -1,12 +1,14 @@
 """Generate Prometheus alerting rules over lightwarden's own metrics (``lightwarden rules``).
 
 The rules are for sites that alert from Prometheus rather than (or as well as) from
-lightwarden's own Alertmanager push. Margin targets come from the exported target gauges
-when the monitor exposes them, and from the generator's arguments otherwise, so one rule
-file works with monitors of any configuration.
-
-Matching uses ``on(job, instance)``: the target gauges have no labels of their own, and
-two monitor instances (an HA pair, or shards) each export their own.
+lightwarden's own Alertmanager push. The optic rules read one family,
+``lightwarden_reading_condition``, which is the rule layer's held condition: the same
+definition the pushed alerts come from. Each rule has the pushed alert's name and, after
+aggregating ``job``, ``instance`` and the family's own labels away, its label set
+(alertname, severity, device, port, lane, quantity), so a site running both gets one
+alert per problem in Alertmanager, not two. Labels Prometheus adds on the way out
+(``external_labels``) would still differ: drop them for these alerts with
+``alert_relabel_configs`` (deploy/prometheus/README.md).
 """
 
 from __future__ import annotations
@@ -21,7 +23,10 @@ from typing import Any
 
 import yaml
 
-from lightwarden.rules.advice import DEFAULT_TARGETS, LASER_CAUTION
+from lightwarden.rules.advice import LASER_CAUTION
+from lightwarden.rules.consistency import ALERTNAME as LINK_ALERTNAME
+from lightwarden.rules.findings import Condition
+from lightwarden.rules.lifecycle import ALERTNAMES
 
 HEADER = (
     "# Prometheus alerting rules for lightwarden metrics.\n"
@@ -30,18 +35,20 @@ HEADER = (
 _DURATION = re.compile(r"^([0-9]+(ms|s|m|h|d|w|y))+$")
 # The exposition's lane/port labels: joins between optic-level series use all of them.
 _OPTIC = "job, instance, device, port, lane"
+#: The labels of a pushed link-finding alert (exporters/alerts/wording.alert_labels): the
+#: rule keeps exactly these (job, instance and external labels aggregated away), so a site
+#: running both gets one alert per finding; the severity comes from the finding.
+LINK_LABELS = "device, port, far_device, far_port, kind, severity"
 
 
 @dataclass(slots=True, frozen=True)
 class RuleParams:
     """Everything the generated rules depend on; each has a command-line option."""
 
-    overload_target_db: float = DEFAULT_TARGETS.overload_db
-    sensitivity_target_db: float = DEFAULT_TARGETS.sensitivity_db
-    margin_for: str = "5m"
-    past_edge_for: str = "2m"
-    dark_for: str = "2m"
-    alarm_for: str = "1m"
+    #: The exported condition is already held (hold times and hysteresis in the rule
+    #: layer), so the rules need no hold of their own; set this to the lifecycle's
+    #: open_hold_s when the site config sets one, so both open at the same time.
+    condition_for: str = "0s"
     drift_db_per_day: float = 1.0
     drift_for: str = "1h"
     runout_days: float = 30.0
@@ -49,14 +56,14 @@ class RuleParams:
     device_data_age_s: float = 900.0
     monitor_job: str = "lightwarden"
     monitor_down_for: str = "5m"
+    link_for: str = "0s"  # a finding is a fact about parts, not a level: no hold
 
     def __post_init__(self) -> None:
         for f in fields(self):
             v = getattr(self, f.name)
             if f.name.endswith(("_for", "_window")) and not _DURATION.match(v):
                 raise ValueError(f"{f.name}: {v!r} is not a Prometheus duration (e.g. 5m, 1h)")
-        for name in ("overload_target_db", "sensitivity_target_db", "drift_db_per_day",
-                     "runout_days"):
+        for name in ("drift_db_per_day", "runout_days"):
             if not getattr(self, name) > 0:
                 raise ValueError(f"{name} must be > 0 (got {getattr(self, name)})")
         if self.device_data_age_s <= 0:
@@ -73,114 +80,95 @@ def _num(x: float) -> str:
 OPTIC = "{{ $labels.device }} {{ $labels.port }} lane {{ $labels.lane }}"
 
 
-def _near_edge_expr(metric: str, target: str, default: float) -> str:
-    # First arm: the monitor exports its configured target. Second arm: it does not, so the
-    # generator's default applies. "> 0" leaves the at-or-past-edge case to the critical rule.
-    return (
-        f"(\n  ({metric} > 0)\n    < on(job, instance) group_left() {target}\n)\n"
-        f"or\n(\n  ({metric} > 0 < {_num(default)})\n"
-        f"    unless on(job, instance) {target}\n)\n"
-    )
+#: What each alerting condition means and what to do, for the rule annotations. The
+#: pushed alerts carry the same condition with advice worked out for the reading (pads,
+#: the far end by name); a rule can only say it in general.
+_CONDITION_TEXT: dict[Condition, tuple[str, str]] = {
+    Condition.NEAR_OVERLOAD: (
+        "Received power is closer to the overload edge than the margin target.",
+        "Fit an attenuator (pad) at the receiver to restore the margin; check whether the "
+        "optic's reach suits the link length."),
+    Condition.NEAR_SENSITIVITY: (
+        "Received power is closer to the sensitivity edge than the margin target: little "
+        "loss left to spare.",
+        "Inspect and clean the connectors along the path, look for tight bends and extra "
+        "splices, and compare span loss with the loss budget."),
+    Condition.OVERLOADED: (
+        "The receiver is at or past its overload edge: bit errors are expected.",
+        "Fit an attenuator (pad) at the receiver sized to bring Rx power back inside the "
+        "window with margin."),
+    Condition.BELOW_SENSITIVITY: (
+        "Too little light reaches the receiver: bit errors are expected.",
+        "Inspect and clean the connectors, check patching and bends, and check the far-end "
+        "Tx power."),
+    Condition.DARK: (
+        "No light where light is expected (port admin up).",
+        "For a receiver: check the far-end transmitter and the patching. For a transmitter: "
+        "check this port's configuration and the module."),
+    Condition.WARNING: (
+        "The reading is past a warning level (the module's own, or the site's).",
+        "Compare with the optic's other readings and with the far end."),
+    Condition.ALARM: (
+        "The reading is past an alarm level (the module's own, or the site's).",
+        "Compare with the optic's other readings and with the far end; replace the optic if "
+        "the alarm persists."),
+    Condition.LASER_OFF: (
+        "This end's transmitter gives no light and its laser bias is zero: the laser is off.",
+        "Check whether the port or the module's transmitter was disabled on purpose; if not, "
+        "replace the optic at this end."),
+    Condition.OFF_STANDARD: (
+        "Tx power is outside the standard's launch window for the PMD, inside the module's "
+        "own levels.",
+        "Check the part suits the PMD on record; plan replacement if the launch keeps "
+        "falling."),
+    Condition.TX_FAULT: (
+        "The transmitter has failed: flagged by the module, or driven with no light out.",
+        "Replace the optic at this end."),
+    Condition.LOSS_OF_SIGNAL: (
+        "The module flags loss of signal on this receiver.",
+        "Check the far-end transmitter, the patching and the connectors."),
+    Condition.NOT_READY: (
+        "The module is not in its ready state.",
+        "Check the module's seating and the port configuration; reseat or replace it."),
+    Condition.LANE_IMBALANCE: (
+        "The lanes of this optic differ by more than the standard allows between any two "
+        "lanes (its weakest lane is named).",
+        "Inspect and clean the connectors (a multi-fibre connector can lose one fibre); for "
+        "Tx, the optic's own lane lasers differ: plan replacement of the optic."),
+    Condition.LATCHED_ALARM: (
+        "The module latched an alarm flag since it was last read: a transient excursion.",
+        "Look at the readings' history around the time; watch for a repeat."),
+}
+
+#: Labels the condition family carries that the alert must not (the pushed alerts have
+#: none of them): aggregated away, with job and instance, so both give one label set.
+_AWAY = "job, instance, condition, edge, source, cause"
+
+
+def _condition_rule(condition: Condition, p: RuleParams) -> dict[str, Any]:
+    what, advice = _CONDITION_TEXT[condition]
+    words = condition.word.replace("_", " ")
+    return {
+        "alert": ALERTNAMES[condition],
+        "expr": f"max without({_AWAY}) (\n"
+        f'  lightwarden_reading_condition{{condition="{condition.word}", cause=""}}\n)\n',
+        "for": p.condition_for,
+        "labels": {"severity": condition.severity.alert.value},
+        "annotations": {
+            "summary": "{{ $labels.quantity }} on " + OPTIC + f": {words}",
+            "description": what,
+            "advice": advice,
+            "caution": LASER_CAUTION,
+        },
+    }
 
 
 def build_rules(p: RuleParams) -> dict[str, Any]:
     """The rule file as a plain structure (rendered by ``render_rules``)."""
-    not_dark = f"unless on({_OPTIC}) (lightwarden_optic_dark == 1)"
-    optics = [
-        {
-            "alert": "LightwardenRxNearOverload",
-            "expr": _near_edge_expr(
-                "lightwarden_rx_margin_to_overload_db",
-                "lightwarden_rx_margin_target_overload_db",
-                p.overload_target_db,
-            ),
-            "for": p.margin_for,
-            "labels": {"severity": "warning"},
-            "annotations": {
-                "summary": f"Rx on {OPTIC} is " + '{{ $value | printf "%.1f" }} dB below overload',
-                "description": "Received power has stayed closer to the overload edge than "
-                f"the margin target for {p.margin_for}: too much light for this receiver.",
-                "advice": "Fit an attenuator (pad) at the receiver to restore the margin; "
-                "check whether the optic's reach suits the link length.",
-                "caution": LASER_CAUTION,
-            },
-        },
-        {
-            "alert": "LightwardenRxNearSensitivity",
-            "expr": _near_edge_expr(
-                "lightwarden_rx_margin_to_sensitivity_db",
-                "lightwarden_rx_margin_target_sensitivity_db",
-                p.sensitivity_target_db,
-            ),
-            "for": p.margin_for,
-            "labels": {"severity": "warning"},
-            "annotations": {
-                "summary": f"Rx on {OPTIC} is "
-                + '{{ $value | printf "%.1f" }} dB above sensitivity',
-                "description": "Received power has stayed closer to the sensitivity edge than "
-                f"the margin target for {p.margin_for}: little loss left to spare.",
-                "advice": "Inspect and clean the connectors along the path, look for tight "
-                "bends and extra splices, and compare span loss with the loss budget.",
-                "caution": LASER_CAUTION,
-            },
-        },
-        {
-            "alert": "LightwardenRxOverloaded",
-            "expr": "lightwarden_rx_margin_to_overload_db <= 0\n",
-            "for": p.past_edge_for,
-            "labels": {"severity": "critical"},
-            "annotations": {
-                "summary": f"Rx on {OPTIC} is at or past overload "
-                + '(margin {{ $value | printf "%.1f" }} dB)',
-                "description": "The receiver is saturating: bit errors are expected.",
-                "advice": "Fit an attenuator (pad) at the receiver sized to bring Rx power "
-                "back inside the window with margin.",
-                "caution": LASER_CAUTION,
-            },
-        },
-        {
-            "alert": "LightwardenRxBelowSensitivity",
-            "expr": f"lightwarden_rx_margin_to_sensitivity_db <= 0\n  {not_dark}\n",
-            "for": p.past_edge_for,
-            "labels": {"severity": "critical"},
-            "annotations": {
-                "summary": f"Rx on {OPTIC} is at or below sensitivity "
-                + '(margin {{ $value | printf "%.1f" }} dB)',
-                "description": "Too little light reaches the receiver: bit errors are expected.",
-                "advice": "Inspect and clean the connectors, check patching and bends, and "
-                "check the far-end Tx power.",
-                "caution": LASER_CAUTION,
-            },
-        },
-        {
-            "alert": "LightwardenOpticDark",
-            "expr": "lightwarden_optic_dark == 1\n",
-            "for": p.dark_for,
-            "labels": {"severity": "critical"},
-            "annotations": {
-                "summary": f"No light on {OPTIC} while the port is admin up",
-                "description": f"The receiver has seen no light for {p.dark_for}.",
-                "advice": "Check the far-end transmitter and the patching; inspect the "
-                "connectors with a video scope.",
-                "caution": LASER_CAUTION,
-            },
-        },
-        {
-            "alert": "LightwardenModuleThresholdAlarm",
-            "expr": "lightwarden_threshold_alarm == 1\n",
-            "for": p.alarm_for,
-            "labels": {"severity": "critical"},
-            "annotations": {
-                "summary": "{{ $labels.quantity }} on "
-                + OPTIC
-                + " is past the module's alarm threshold",
-                "description": "The optic reports a reading beyond the alarm threshold in its "
-                "own memory map.",
-                "advice": "Compare with the optic's other readings and with the far end; "
-                "replace the optic if the alarm persists.",
-                "caution": LASER_CAUTION,
-            },
-        },
+    not_dark = (f"unless on({_OPTIC}) "
+                'lightwarden_reading_condition{quantity="rx_power", condition="dark"}')
+    optics = [_condition_rule(c, p) for c in ALERTNAMES]
+    optics += [
         {
             # The monitor's robust slope from history, exported only where its interval
             # excludes zero: deriv() over a few scrapes fires on glitches, steps and
@@ -258,10 +246,29 @@ def build_rules(p: RuleParams) -> dict[str, Any]:
             },
         },
     ]
+    links = [
+        {
+            "alert": LINK_ALERTNAME,
+            "expr": f"max by ({LINK_LABELS}) (lightwarden_link_consistency) == 1\n",
+            "for": p.link_for,
+            "annotations": {
+                "summary": "{{ $labels.kind }} on {{ $labels.device }} {{ $labels.port }}"
+                "{{ if $labels.far_device }} / {{ $labels.far_device }} "
+                "{{ $labels.far_port }}{{ end }}",
+                "description": "The optics fitted, or the fibre plant recorded, do not belong "
+                "together (PMD, wavelength, BiDi pair, CWDM/DWDM channel, fibre type or "
+                "reach); the status page and `lightwarden check` give the numbers.",
+                "advice": "Check the part numbers at both ends against the plant record and "
+                "the optics' datasheets, then fit matching optics or correct the record.",
+                "caution": LASER_CAUTION,
+            },
+        },
+    ]
     return {
         "groups": [
             {"name": "lightwarden-optics", "rules": optics},
             {"name": "lightwarden-devices", "rules": devices},
+            {"name": "lightwarden-links", "rules": links},
         ]
     }
 

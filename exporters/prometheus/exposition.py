@@ -14,9 +14,11 @@ Choices (see exporters/prometheus/README.md for the catalogue):
 - A row without a value never becomes a number: no NaN, no -inf for a dark receiver. It
   becomes one ``lightwarden_reading_unavailable{...,reason}`` sample instead, so every
   batch row yields exactly one of "a value sample" or "an unavailable sample".
-- Flags (dark, threshold alarm/warning) are sparse: emitted with value 1 while true,
-  absent otherwise. Emitting 0 for every lane and quantity would add ~12 series per
-  optic (over a million at 10^5 optics) that carry almost no information.
+- Conditions per reading are sparse: ``lightwarden_reading_condition`` has one series
+  with value 1 for each reading at warning or worse, absent otherwise. Emitting 0 for
+  every lane and quantity would add ~12 series per optic (over a million at 10^5
+  optics) that carry almost no information. It is the rule layer's held condition, so
+  the generated Prometheus rules and the pushed alerts share one definition.
 - The optic's condition is one series carrying the current condition word (value 1),
   plus a numeric ``lightwarden_optic_severity`` for thresholds and sorting; a full
   state set would be nine series per optic.
@@ -34,14 +36,19 @@ import threading
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 
+import numpy as np
+
 from lightwarden.collector.readings import PollOutcome, Quantity, ReadingStatus
 from lightwarden.exporters.prometheus.self_metrics import SelfMetrics
+from lightwarden.rules.consistency import Finding
 from lightwarden.rules.findings import (
     SEVERITY_OF,
     AlertEvent,
     AlertKind,
     Assessment,
     Condition,
+    Edge,
+    Severity,
     WindowSource,
 )
 
@@ -62,9 +69,8 @@ CONTENT_TYPE = "text/plain; version=0.0.4; charset=utf-8"
     F_MARGIN_SENSITIVITY,
     F_CONDITION,
     F_SEVERITY,
-    F_DARK,
-    F_THRESHOLD_ALARM,
-    F_THRESHOLD_WARNING,
+    F_READING_CONDITION,
+    F_RX_LEVEL,
     F_INFO,
     F_UNAVAILABLE,
     F_DEVICE_UP,
@@ -72,6 +78,7 @@ CONTENT_TYPE = "text/plain; version=0.0.4; charset=utf-8"
     F_DEVICE_POLL_DURATION,
     F_DEVICE_POLL_ERRORS,
     F_DEVICE_OPTICS,
+    F_DEVICE_PROBLEMS,
 ) = range(21)
 
 
@@ -108,12 +115,14 @@ DEVICE_FAMILIES: tuple[Family, ...] = (
     Family(
         "lightwarden_rx_overload_dbm",
         "gauge",
-        "High edge of the receive window (overload) in force for the lane, dBm.",
+        "Overload edge the lane's margin is measured to (the standard's where the PMD is "
+        "known), dBm; window_source says who declared it.",
     ),
     Family(
         "lightwarden_rx_sensitivity_dbm",
         "gauge",
-        "Low edge of the receive window (sensitivity) in force for the lane, dBm.",
+        "Sensitivity edge the lane's margin is measured to (the standard's where the PMD is "
+        "known), dBm; window_source says who declared it.",
     ),
     Family(
         "lightwarden_rx_margin_to_overload_db",
@@ -136,19 +145,16 @@ DEVICE_FAMILIES: tuple[Family, ...] = (
         "Severity of the optic's condition: 0 fine, 1 unknown, 2 warning, 3 critical.",
     ),
     Family(
-        "lightwarden_optic_dark",
+        "lightwarden_reading_condition",
         "gauge",
-        "1 while the lane's receiver reports no light (0 mW); absent otherwise.",
+        "1 for each reading whose held condition is a warning or worse, with the edge it is "
+        "about and its source; cause names the reading that explains it (empty: its own).",
     ),
     Family(
-        "lightwarden_threshold_alarm",
+        "lightwarden_rx_level_dbm",
         "gauge",
-        "1 while the reading is at or past an alarm threshold the module declares.",
-    ),
-    Family(
-        "lightwarden_threshold_warning",
-        "gauge",
-        "1 while the reading is at or past a warning threshold the module declares.",
+        "Alarm and warning levels in force for the lane's Rx power (the module's own, or the "
+        "site's), dBm.",
     ),
     Family(
         "lightwarden_optic_info",
@@ -181,6 +187,12 @@ DEVICE_FAMILIES: tuple[Family, ...] = (
         "gauge",
         "Optics found in the device by the last successful poll.",
     ),
+    Family(
+        "lightwarden_device_problems",
+        "gauge",
+        "Things the device reports about its optics that cannot be right (two sensors for "
+        "one lane, say), counted at the last successful poll; the page and check name them.",
+    ),
 )
 
 TARGET_OVERLOAD = Family(
@@ -197,6 +209,11 @@ ALERT_OPEN = Family(
     "lightwarden_alert_open",
     "gauge",
     "1 for each alert lightwarden currently holds open.",
+)
+LINK_CONSISTENCY = Family(
+    "lightwarden_link_consistency",
+    "gauge",
+    "1 for each consistency finding present (optics and plant that do not belong together).",
 )
 
 _N = len(DEVICE_FAMILIES)
@@ -224,8 +241,10 @@ _CONDITION_WORD = {int(c): c.word for c in Condition}
 _SOURCE_WORD = {int(s): s.word for s in WindowSource}
 _RX = int(Quantity.RX_POWER)
 _OK = int(ReadingStatus.OK)
-_NO_LIGHT = int(ReadingStatus.NO_LIGHT)
 _SOURCE_NONE = int(WindowSource.NONE)
+_ALERTING = int(Severity.WARNING)
+_EDGE_WORD = {int(e): e.word for e in Edge}
+_LEVEL_WORDS = ("low_alarm", "high_alarm", "low_warning", "high_warning")
 
 
 def format_value(value: float) -> str:
@@ -260,6 +279,7 @@ class _Health:
     errors: dict[str, int] = field(default_factory=dict)
     last_success: float | None = None
     optics: int | None = None
+    problems: int = 0
     duration: float = 0.0
     up: bool = False
 
@@ -307,7 +327,6 @@ def render_device(
     # optics with one port name would produce duplicate series and fail the scrape.
     optic_base: list[str | None] = []
     optic_pmd: list[str] = []
-    optic_th: list[dict[int, object]] = []
     seen_ports: set[str] = set()
     for opt in batch.optics:
         if opt.port in seen_ports:
@@ -316,12 +335,10 @@ def render_device(
             )
             optic_base.append(None)
             optic_pmd.append("")
-            optic_th.append({})
             continue
         seen_ports.add(opt.port)
         optic_base.append(f'device="{dev}",port="{escape_label_value(opt.port)}"')
         optic_pmd.append(escape_label_value(opt.pmd))
-        optic_th.append({int(k): v for k, v in opt.thresholds.items()})
 
     optic_col = batch.optic.tolist()
     lane_col = batch.lane.tolist()
@@ -334,6 +351,15 @@ def render_device(
         src_col = assessment.window_source.tolist()
         mlo_col = assessment.margin_low_db.tolist()
         mhi_col = assessment.margin_high_db.tolist()
+        assert assessment.edge_sources is not None and assessment.edge is not None
+        assert assessment.edge_source is not None
+        esrc_rows = assessment.edge_sources.tolist()
+        level_rows = assessment.edges[:, 2:].tolist()
+        sev_col = SEVERITY_OF[assessment.condition.astype(np.int64)].tolist()
+        cond_col = assessment.condition.tolist()
+        edge_col = assessment.edge.tolist()
+        edge_src_col = assessment.edge_source.tolist()
+        causes = assessment.cause
     n_optics = len(batch.optics)
     rx_source: list[int | None] = [None] * n_optics
 
@@ -371,43 +397,48 @@ def render_device(
                 )
             else:
                 o_val[_VALUE_FAMILY[q]].append(f"{value_names[q]}{{{lbl}}} {v / _DIVISOR[q]!r}\n")
-            th = optic_th[o].get(q)
-            if th is not None:
-                # "At or past" matches the rule layer's reading of an edge.
-                qlbl = f'{base},lane="{lane}",quantity="{_QUANTITY_LABEL[q]}"'
-                if (th.high_alarm is not None and v >= th.high_alarm) or (
-                    th.low_alarm is not None and v <= th.low_alarm
-                ):
-                    o_val[F_THRESHOLD_ALARM].append(f"lightwarden_threshold_alarm{{{qlbl}}} 1\n")
-                if (th.high_warning is not None and v >= th.high_warning) or (
-                    th.low_warning is not None and v <= th.low_warning
-                ):
-                    o_val[F_THRESHOLD_WARNING].append(
-                        f"lightwarden_threshold_warning{{{qlbl}}} 1\n"
-                    )
         else:
             o_val[F_UNAVAILABLE].append(
                 f'lightwarden_reading_unavailable{{{base},lane="{lane}",'
                 f'quantity="{_QUANTITY_LABEL[q]}",reason="{_REASON.get(st, "invalid")}"}} 1\n'
             )
-            if st == _NO_LIGHT and q == _RX:
-                o_val[F_DARK].append(f"lightwarden_optic_dark{{{lbl}}} 1\n")
-        if assessment is not None and q == _RX:
+        if assessment is None:
+            continue
+        if sev_col[i] >= _ALERTING:
+            # The one definition of each condition: the rule layer's held condition, the
+            # same one the pushed alerts come from (alert_rules.py reads this family).
+            word = _CONDITION_WORD.get(cond_col[i])
+            if word is not None:
+                cause = escape_label_value(causes.get(i, ""))
+                o_val[F_READING_CONDITION].append(
+                    f'lightwarden_reading_condition{{{base},lane="{lane}",'
+                    f'quantity="{_QUANTITY_LABEL[q]}",condition="{word}",'
+                    f'edge="{_EDGE_WORD.get(edge_col[i], "")}",'
+                    f'source="{_SOURCE_WORD.get(edge_src_col[i], "none")}",cause="{cause}"}} 1\n'
+                )
+        if q == _RX:
             src = src_col[i]
             if rx_source[o] is None:
                 rx_source[o] = src
             if options.window_edges and src != _SOURCE_NONE:
-                sw = _SOURCE_WORD.get(src)
-                if sw is not None:
-                    hi = hi_col[i]
-                    lo = lo_col[i]
-                    if isfinite(hi):
-                        o_val[F_RX_OVERLOAD].append(
-                            f'lightwarden_rx_overload_dbm{{{lbl},window_source="{sw}"}} {hi!r}\n'
-                        )
-                    if isfinite(lo):
-                        o_val[F_RX_SENSITIVITY].append(
-                            f'lightwarden_rx_sensitivity_dbm{{{lbl},window_source="{sw}"}} {lo!r}\n'
+                esrc = esrc_rows[i]
+                hi = hi_col[i]
+                lo = lo_col[i]
+                if isfinite(hi):
+                    o_val[F_RX_OVERLOAD].append(
+                        f'lightwarden_rx_overload_dbm{{{lbl},window_source='
+                        f'"{_SOURCE_WORD.get(esrc[1], "none")}"}} {hi!r}\n'
+                    )
+                if isfinite(lo):
+                    o_val[F_RX_SENSITIVITY].append(
+                        f'lightwarden_rx_sensitivity_dbm{{{lbl},window_source='
+                        f'"{_SOURCE_WORD.get(esrc[0], "none")}"}} {lo!r}\n'
+                    )
+                for k, lv in enumerate(level_rows[i]):
+                    if isfinite(lv):
+                        o_val[F_RX_LEVEL].append(
+                            f'lightwarden_rx_level_dbm{{{lbl},level="{_LEVEL_WORDS[k]}",'
+                            f'source="{_SOURCE_WORD.get(esrc[2 + k], "none")}"}} {lv!r}\n'
                         )
             m = mhi_col[i]
             if isfinite(m):
@@ -493,6 +524,7 @@ class Exposition:
     ) -> None:
         self._options = options or ExpositionOptions()
         self._alerts = alerts
+        self._links: Callable[[], Iterable[Finding]] | None = None
         self._gzip_level = gzip_level
         self._lock = threading.Lock()
         self._devices: dict[str, DeviceChunks] = {}
@@ -523,6 +555,10 @@ class Exposition:
         """Text rendered elsewhere (the drift gauges) appended to every scrape."""
         self._extra = source
 
+    def set_link_source(self, links: Callable[[], Iterable[Finding]] | None) -> None:
+        """Consistency findings, rendered at scrape time like the open alerts."""
+        self._links = links
+
     def set_self_metrics(self, self_metrics: SelfMetrics | None) -> None:
         """Append the monitor's own figures (process, polls, scrape cost) to every scrape."""
         self._self = self_metrics
@@ -544,8 +580,10 @@ class Exposition:
             if outcome.ok and outcome.batch is not None:
                 h.last_success = outcome.batch.taken_at
                 h.optics = len(outcome.batch.optics)
-            health = (h.up, h.duration, h.last_success, h.optics, sorted(h.errors.items()))
-        up, duration, last_success, optics, errors = health
+                h.problems = sum(len(o.problems) for o in outcome.batch.optics)
+            health = (h.up, h.duration, h.last_success, h.optics, sorted(h.errors.items()),
+                      h.problems)
+        up, duration, last_success, optics, errors, problems = health
         lines[F_DEVICE_UP].append(f'lightwarden_device_up{{device="{dev}"}} {int(up)}\n')
         if math.isfinite(duration):
             lines[F_DEVICE_POLL_DURATION].append(
@@ -559,6 +597,8 @@ class Exposition:
             )
         if optics is not None:
             lines[F_DEVICE_OPTICS].append(f'lightwarden_device_optics{{device="{dev}"}} {optics}\n')
+            lines[F_DEVICE_PROBLEMS].append(
+                f'lightwarden_device_problems{{device="{dev}"}} {problems}\n')
         for kind, count in errors:
             lines[F_DEVICE_POLL_ERRORS].append(
                 f'lightwarden_device_poll_errors_total{{device="{dev}",'
@@ -657,10 +697,26 @@ class Exposition:
         alerts = self.alerts_text()
         if alerts:
             parts.append(_gz(alerts, self._gzip_level) if compressed else alerts)
+        links = self.links_text()
+        if links:
+            parts.append(_gz(links, self._gzip_level) if compressed else links)
         extra = self._extra() if self._extra is not None else b""
         if extra:
             parts.append(_gz(extra, self._gzip_level) if compressed else extra)
         return parts
+
+    def links_text(self) -> bytes:
+        """The consistency family, rendered now from the link source (b"" when none)."""
+        source = self._links
+        if source is None:
+            return b""
+        try:
+            findings = list(source())
+        except Exception as exc:  # a broken source must not break the scrape
+            log.error("link source failed (%s); findings left out of this scrape",
+                      type(exc).__name__)
+            return b""
+        return render_links(findings)
 
     def body(self) -> bytes:
         """The full exposition, text format 0.0.4, as one bytes object."""
@@ -684,8 +740,8 @@ def render_alerts(events: Iterable[AlertEvent]) -> bytes:
     lines: list[str] = []
     seen: set[tuple[str, ...]] = set()
     for ev in events:
-        if ev.kind is AlertKind.RESOLVE:
-            continue
+        if ev.kind is AlertKind.RESOLVE or ev.quantity is None:
+            continue  # link findings have their own family (render_links)
         labels = (
             ev.alertname,
             ev.severity.value,
@@ -705,3 +761,22 @@ def render_alerts(events: Iterable[AlertEvent]) -> bytes:
     if not lines:
         return b""
     return ALERT_OPEN.header() + "".join(lines).encode("utf-8", "replace")
+
+
+def render_links(findings: Iterable[Finding]) -> bytes:
+    """``lightwarden_link_consistency`` lines, one per finding (value 1 while present)."""
+    lines: list[str] = []
+    seen: set[str] = set()
+    for f in findings:
+        if f.key in seen:
+            continue
+        seen.add(f.key)
+        d, p, fd, fp, k, s = (escape_label_value(x) for x in (
+            f.device, f.port, f.far_device, f.far_port, f.kind.value, f.severity.word))
+        lines.append(
+            f'lightwarden_link_consistency{{device="{d}",port="{p}",far_device="{fd}",'
+            f'far_port="{fp}",kind="{k}",severity="{s}"}} 1\n'
+        )
+    if not lines:
+        return b""
+    return LINK_CONSISTENCY.header() + "".join(lines).encode("utf-8", "replace")

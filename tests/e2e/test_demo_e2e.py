@@ -90,9 +90,10 @@ def test_exits_zero_at_end_of_duration(run):
 
 def test_every_lab_optic_is_exported(run):
     s = _settled(run)
-    # source: the lab model itself (fixtures/lab/model.py): 158 optics across 4 switches.
+    # source: the lab model itself (fixtures/lab/model.py): 168 optics across 4 switches
+    # (158, plus the ten ends of the consistency stories' BiDi, CWDM and multimode runs).
     expected = {(p.device, p.name) for p in LAB.optic_ports()}
-    assert len(expected) == 158
+    assert len(expected) == 168
     info = {(x.labels["device"], x.labels["port"]) for x in s.samples("lightwarden_optic_info")}
     cond = {
         (x.labels["device"], x.labels["port"]) for x in s.samples("lightwarden_optic_condition")
@@ -141,8 +142,8 @@ def test_readings_are_plausible(run):
     for x in s.samples("lightwarden_supply_volts"):
         assert 3.1 <= x.value <= 3.5, x
     assert checked >= 150
-    assert len(s.samples("lightwarden_temperature_celsius")) == 158
-    assert len(s.samples("lightwarden_supply_volts")) == 158
+    assert len(s.samples("lightwarden_temperature_celsius")) == 168  # one per optic
+    assert len(s.samples("lightwarden_supply_volts")) == 168
 
 
 @pytest.mark.parametrize("device", ["qm-core-a", "qm-core-b"])
@@ -167,9 +168,14 @@ def test_dark_port_and_its_disabled_far_end(run):
     s = _settled(run)
     # dark_port story at qm-dist-b sfp20: the far transmitter (qm-core-a sfp20) is off.
     assert s.condition("qm-dist-b", "sfp20") == "dark"
-    assert s.value("lightwarden_optic_dark", device="qm-dist-b", port="sfp20", lane="1") == 1.0
+    # the dark receiver is explained by the laser that is off at the far end
+    (dark,) = s.samples("lightwarden_reading_condition", device="qm-dist-b", port="sfp20",
+                        quantity="rx_power")
+    assert dark.labels["condition"] == "dark"
+    assert dark.labels["cause"] == "qm-core-a|sfp20|1|tx_power"
     assert s.samples("lightwarden_rx_power_dbm", device="qm-dist-b", port="sfp20") == []
-    assert s.condition("qm-core-a", "sfp20") == "dark"
+    # this end's laser is off (no Tx light, bias 0 mA): laser_off, not "dark"
+    assert s.condition("qm-core-a", "sfp20") == "laser_off"
     assert s.samples("lightwarden_reading_unavailable", device="qm-core-a", port="sfp20",
                      quantity="tx_power", reason="no_light")
     # its receiver still gets light from qm-dist-b
@@ -189,7 +195,7 @@ def test_missing_bias_sensor_is_unknown(run):
 
 
 def test_hover_never_flaps_faster_than_the_hold(run):
-    """hover story: Rx swings around the 3 dB margin target above the module's low alarm."""
+    """hover story: Rx swings around the 3 dB margin target above the standard's sensitivity."""
     _, scrapes, _ = run
     seen: list[tuple[float, str]] = []  # (poll time of qm-core-b, condition)
     for s in scrapes:

@@ -15,6 +15,7 @@ import urllib.request
 
 import pytest
 from support.demo import DemoProc
+from support.lab_findings import LAB_FINDINGS, LINK_LABELS, label_tuple
 from support.procs import LOOPBACK, require_binary, start_on_free_port, wait_for
 
 from lightwarden.fixtures.lab.model import Lab
@@ -59,12 +60,12 @@ def demo(tmp_path):
 
 @pytest.fixture
 def rules_file(tmp_path):
-    """The generator's rules with short `for:` durations (its own options, nothing edited)."""
+    """The generator's rules as shipped (the optic rules need no `for:`: the condition
+    they read is already held by the rule layer)."""
     out = tmp_path / "lightwarden-alerts.yml"
     res = subprocess.run(
         [sys.executable, "-m", "lightwarden.exporters.app.cli", "rules", "-o", str(out),
-         "--margin-for", "5s", "--past-edge-for", "3s", "--dark-for", "3s",
-         "--alarm-for", "3s", "--drift-for", "1s"],
+         "--drift-for", "1s"],
         capture_output=True, text=True, timeout=60, check=False,
     )
     assert res.returncode == 0, res.stderr
@@ -97,7 +98,33 @@ def prometheus(tmp_path, demo, rules_file):
     proc.stop()
 
 
-def test_prometheus_fires_the_overload_rule_for_the_hot_receiver(demo, prometheus):
+def _optic_alerts(base: str) -> set[tuple[str, ...]]:
+    """Firing optic alerts in Prometheus, as the label sets Alertmanager would key them by."""
+    alerts = _get(base + "/api/v1/alerts")["data"]["alerts"]
+    return {tuple(sorted(a["labels"].items())) for a in alerts
+            if a["state"] == "firing" and a["labels"]["alertname"].startswith("Optic")}
+
+
+def _pushed_alerts(demo: DemoProc) -> set[tuple[str, ...]]:
+    """The demo's own open alerts (what it pushes), as the same label sets."""
+    with _OPENER.open(f"http://{LOOPBACK}:{demo.port}/api/optics", timeout=5) as r:
+        doc = json.loads(r.read())
+    return {tuple(sorted(_pushed_labels(a).items())) for a in doc["alerts"]}
+
+
+def _pushed_labels(a: dict) -> dict[str, str]:
+    """A pushed alert's labels (exporters/alerts/wording.alert_labels) from the API row."""
+    if a.get("kind"):  # a link finding: its ends and kind, no lane or quantity
+        out = {"alertname": a["alertname"], "severity": a["severity"], "device": a["device"],
+               "port": a["port"], "kind": a["kind"]}
+        if a["far_device"]:
+            out |= {"far_device": a["far_device"], "far_port": a["far_port"]}
+        return out
+    return {"alertname": a["alertname"], "severity": a["severity"], "device": a["device"],
+            "port": a["port"], "lane": str(a["lane"]), "quantity": a["quantity"]}
+
+
+def test_prometheus_rules_and_pushed_alerts_are_one_definition(demo, prometheus):
     base, proc = prometheus
 
     def target_up():
@@ -109,42 +136,57 @@ def test_prometheus_fires_the_overload_rule_for_the_hot_receiver(demo, prometheu
 
     expected = _hot_receiver_ports()
 
-    def firing(alertname: str):
-        alerts = _get(base + "/api/v1/alerts")["data"]["alerts"]
-        return [a for a in alerts if a["labels"]["alertname"] == alertname
-                and a["state"] == "firing"]
-
     def overloaded_firing():
-        got = firing("LightwardenRxOverloaded")
-        ports = {(a["labels"]["device"], a["labels"]["port"]) for a in got}
+        got = [dict(a) for a in _optic_alerts(base) if dict(a)["alertname"] ==
+               "OpticRxOverloaded"]
+        ports = {(a["device"], a["port"]) for a in got}
         return got if ports >= expected else None
 
     try:
-        got = wait_for(overloaded_firing, 90, "LightwardenRxOverloaded firing on both "
+        got = wait_for(overloaded_firing, 90, "OpticRxOverloaded firing on both "
                        "ends of the hot receiver link", step=1.0)
     except AssertionError as exc:
         raise AssertionError(f"{exc}\nalerts: {_get(base + '/api/v1/alerts')}\n"
                              f"prometheus log:\n{proc.log_tail()}\ndemo log:\n"
                              f"{demo.log_tail()}") from None
-    # Only the story's optics are past overload: every other receiver in the lab has margin.
-    assert {(a["labels"]["device"], a["labels"]["port"]) for a in got} == expected
+    # Only the story's optics are past overload: every other receiver has margin. The
+    # label set is the pushed alert's: no job, no instance (aggregated away).
+    assert {(a["device"], a["port"]) for a in got} == expected
     for a in got:
-        assert a["labels"]["severity"] == "critical"
-        assert a["labels"]["lane"] == "1"
-        assert a["labels"]["job"] == "lightwarden"
-        # margin to overload <= 0: the alert's value is the margin itself
-        assert float(a["value"]) <= 0.0
-        assert "pad" in a["annotations"]["advice"]
-        assert "never look into a fibre end" in a["annotations"]["caution"].lower()
-        assert f"{a['labels']['device']} {a['labels']['port']} lane 1" in \
-            a["annotations"]["summary"]
+        assert set(a) == {"alertname", "severity", "device", "port", "lane", "quantity"}
+        assert a["severity"] == "critical" and a["lane"] == "1"
 
-    # The dark_port story (qm-dist-b sfp20 receives no light) fires the dark rule too.
-    dark = wait_for(lambda: firing("LightwardenOpticDark"), 60, "LightwardenOpticDark firing",
-                    step=1.0)
-    assert {(a["labels"]["device"], a["labels"]["port"]) for a in dark} == {
-        ("qm-dist-b", "sfp20")
-    }
+    # The whole set agrees with what the demo pushes: same names, same labels, one per
+    # problem. Both move with the lab clock, so wait for a moment they match.
+    def names(alerts):
+        return {(dict(a)["alertname"], dict(a)["device"], dict(a)["port"]) for a in alerts}
+
+    def same():
+        # Settled: both sides agree, and the first cycle's transient is over (a receiver
+        # polled before its far end's first poll is dark on its own for one cycle).
+        rules, pushed = _optic_alerts(base), _pushed_alerts(demo)
+        settled = ("OpticLaserOff", "qm-core-a", "sfp20") in names(rules) and (
+            "OpticDark", "qm-dist-b", "sfp20") not in names(rules)
+        return (rules, pushed) if rules == pushed and settled else None
+
+    try:
+        rules, _ = wait_for(same, 60, "Prometheus's optic alerts to equal the pushed ones",
+                            step=1.0)
+    except AssertionError as exc:
+        raise AssertionError(f"{exc}\nrules: {sorted(_optic_alerts(base))}\n"
+                             f"pushed: {sorted(_pushed_alerts(demo))}") from None
+    got_names = names(rules)
+    # One definition of dark: the laser that is off at qm-core-a sfp20 (dark_port story)
+    # is one alert, from both; its far receiver's darkness is caused by it and silent.
+    assert ("OpticLaserOff", "qm-core-a", "sfp20") in got_names
+    assert ("OpticDark", "qm-dist-b", "sfp20") not in got_names
+
+    # The lab's consistency stories are part of that one set: one OpticLinkMismatch per
+    # finding, with exactly the pushed alert's labels (job and instance aggregated away).
+    links = {label_tuple(dict(a)) for a in rules if dict(a)["alertname"] == "OpticLinkMismatch"}
+    assert links == LAB_FINDINGS
+    assert all(set(dict(a)) == {"alertname", *LINK_LABELS} for a in rules
+               if dict(a)["alertname"] == "OpticLinkMismatch")
 
     # Drift: the monitor's robust slope from the demo's backfilled history reaches
     # Prometheus for the wearing laser's receiver only (lab.yaml laser_wear: -0.06 dB/day),

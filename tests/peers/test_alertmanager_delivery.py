@@ -109,8 +109,8 @@ def test_open_then_resolve_reaches_webhook_receiver(tmp_path, alertmanager, hook
         "quantity": "rx_power",
         "site": "harrowgate-lab",
     }
-    assert "margin 0.90 dB" in alert["annotations"]["description"]
-    assert "overload edge 0.50 dBm (window from module)" in alert["annotations"]["description"]
+    assert "margin 0.9 dB" in alert["annotations"]["description"]
+    assert "overload edge 0.5 dBm (from module)" in alert["annotations"]["description"]
     assert alert["annotations"]["caution"].startswith("Never look into a fibre end")
     assert alert["generatorURL"] == "http://127.0.0.1:9817/"
 

@@ -104,7 +104,7 @@ def rfc3433(value: int, scale: int, precision: int) -> float:
 
 SENSOR_NAME = re.compile(
     r"^(?P<port>\S+) (?P<what>Rx Power|Tx Power|Bias|Temperature|Supply Voltage)"
-    r"(?: Lane (?P<lane>\d+))?$")
+    r"(?: Lane (?P<lane>\d+)| (?P<total>Total))?$")
 
 
 @functools.cache
@@ -139,7 +139,8 @@ def sensors_by_name(port: int, creds: list[str]) -> dict[tuple[str, str, int], d
         m = SENSOR_NAME.match(names[idx])
         assert m, f"sensor name {names[idx]!r} does not follow the contract"
         assert if_names[alias[port_ent]] == m["port"]
-        key = (m["port"], m["what"], int(m["lane"] or 0))
+        # the name's lane as the device numbers it; "Total" (one story) is kept as -1
+        key = (m["port"], m["what"], -1 if m["total"] else int(m["lane"] or 0))
         out[key] = {
             "type": int(cols[1][idx]), "scale": int(cols[2][idx]),
             "precision": int(cols[3][idx]), "value": int(value),
@@ -167,7 +168,12 @@ def expected(lab: Lab, device: str, port_name: str, what: str, lane: int, t: flo
         return ps.temperature_c
     if what == "Supply Voltage":
         return ps.supply_v
-    ls = ps.lanes[lane - 1]
+    assert ps.optic is not None
+    if lane == -1:  # the total_power_sensor story: all lanes' mW added up
+        lit = [ln.rx_mw for ln in ps.lanes if ln.rx_mw is not None]
+        return sum(lit) / 1000.0 if lit else None
+    # the lanes_from_zero story numbers an optic's sensors from 0
+    ls = ps.lanes[lane - ps.optic.lane_base]
     raw = {"Rx Power": ls.rx_mw, "Tx Power": ls.tx_mw, "Bias": ls.bias_ma}[what]
     return None if raw is None else raw / 1000.0
 
@@ -243,7 +249,8 @@ def test_sensor_values_decode_to_the_model_sample(agent: LabSnmpAgent, lab: Lab,
                                                   device: str, creds: list[str]):
     sensors = sensors_on(agent.ports[device], tuple(creds))
     dev = lab.devices[device]
-    want_count = sum(2 + 3 * p.optic.part.lanes for p in dev.ports if p.optic is not None)
+    want_count = sum(2 + 3 * p.optic.part.lanes + p.optic.total_rx_sensor
+                     for p in dev.ports if p.optic is not None)
     assert len(sensors) == want_count
     dbm = dev.power_encoding == "dbm"
     for (port_name, what, lane), s in sensors.items():

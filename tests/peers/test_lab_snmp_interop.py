@@ -41,6 +41,10 @@ def model_value(sample, quantity: Quantity, lane: int) -> float | None:
         return sample.temperature_c
     if quantity is Quantity.SUPPLY:
         return sample.supply_v
+    if lane == 0 and quantity is Quantity.RX_POWER:  # a total over all lanes: mW add up
+        lit = [ln.rx_mw for ln in sample.lanes if ln.rx_mw is not None]
+        total = sum(lit) if lit else None
+        return total if not total else 10 * math.log10(total)
     ls = sample.lanes[lane - 1]
     if quantity is Quantity.BIAS:
         return ls.bias_ma
@@ -99,7 +103,9 @@ def test_collector_reads_what_the_lab_model_says(device: str, credentials: SnmpC
             assert status is ReadingStatus.OK, where
             assert value == pytest.approx(want, abs=TOLERANCE[quantity]), where
         seen.add((ident.port, quantity, lane))
-    expected_rows = sum(2 + 3 * samples[p].optic.part.lanes for p in fitted)
+    # 2 module sensors + 3 per lane, + 1 where the total_power_sensor story adds a total
+    expected_rows = sum(2 + 3 * samples[p].optic.part.lanes + samples[p].optic.total_rx_sensor
+                        for p in fitted)
     assert len(seen) == len(batch) == expected_rows
     # the stories this test relies on to exercise both edge statuses on these devices
     statuses = set(batch.status.tolist())

@@ -141,7 +141,7 @@ def clock(lab):
 
 @pytest.fixture(scope="module")
 def agent(lab_snmp_agent):
-    return lab_snmp_agent(0, ["qm-dist-a"])
+    return lab_snmp_agent(0, ["qm-dist-a", "qm-core-b"])
 
 
 def test_snmp_reads_each_module_once(agent, lab):
@@ -172,7 +172,11 @@ def test_snmp_reads_each_module_once(agent, lab):
 
     first, last, reads = asyncio.run(go())
     assert first.ok and last.ok
-    assert reads == [len(optics)] * 3 + [len(optics) + 1]
+    # Each module's map once, except a module with a status flag set (the lab's tx_fault
+    # story, elsewhere): its map is read every poll, so the flag is seen to clear.
+    flagged = sum(1 for p in optics if p.optic.tx_fault)
+    n = len(optics)
+    assert reads == [n, n + flagged, n + 2 * flagged, n + 3 * flagged + 1]
     for outcome in (first, last):
         with_thresholds = [o for o in outcome.batch.optics if RX in o.thresholds]
         assert len(with_thresholds) == len(optics)
@@ -231,10 +235,44 @@ def test_ssh_reads_each_module_once(lab, clock):
 
         first, second, reads_first, reads_second = asyncio.run(go())
     count = sum(1 for p in lab.devices["qm-dist-a"].ports if p.optic is not None)
+    flagged = sum(1 for p in lab.devices["qm-dist-a"].ports if p.optic and p.optic.tx_fault)
     assert first.ok and second.ok, (first.error, second.error)
-    assert reads_first == reads_second == count
+    # once per module, and every poll for the one with a flag set (tx_fault story)
+    assert (reads_first, reads_second) == (count, count + flagged)
     for outcome in (first, second):
         sfp6 = next(o for o in outcome.batch.optics if o.port == "sfp6")
         rows = np.nonzero((outcome.batch.quantity == int(RX))
                           & (outcome.batch.optic == outcome.batch.optics.index(sfp6)))[0]
         assert all("CC_BASE" in outcome.batch.notes[int(r)] for r in rows)
+
+
+@pytest.mark.external
+def test_a_flagged_module_is_read_every_poll(agent, lab):
+    # The tx_fault story's module (lab.yaml) keeps its flag: its map is fetched each poll,
+    # the others' once (collector/map_facts.py MAP_REFRESH_S).
+    device = "qm-core-b"
+    host, port = agent.endpoint(device)
+    optics = [p for p in lab.devices[device].ports if p.optic is not None]
+    assert sum(1 for p in optics if p.optic.tx_fault) == 1
+
+    async def go():
+        pool = EnginePool()
+        src = SnmpSource(device, host, SnmpCredentials.v2c(LAB_COMMUNITY), port=port,
+                         engines=pool, eeprom_oid=EEPROM_OID, timeout=3.0)
+        try:
+            first = await src.poll(1.0)
+            reads = [src.map_reads]
+            await src.poll(2.0)
+            reads.append(src.map_reads)
+            return first, reads
+        finally:
+            pool.close()
+
+    first, reads = asyncio.run(go())
+    faulted = next(o for o in first.batch.optics if o.port == "sfp27")
+    assert ("tx_fault", 1) in faulted.flags
+    # every module with a flag set is read again (the faulted one, and the hot receiver
+    # of the hot_receiver story whose own Rx high alarm flag is set), the rest are not
+    flagged = [o.port for o in first.batch.optics if o.flags]
+    assert "sfp27" in flagged and "sfp31" in flagged
+    assert reads == [len(optics), len(optics) + len(flagged)]

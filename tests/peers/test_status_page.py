@@ -9,6 +9,8 @@ import urllib.request
 
 import pytest
 import yaml
+from prometheus_client.parser import text_string_to_metric_families
+from support.lab_findings import LAB_FINDINGS, label_tuple
 
 from lightwarden.exporters.app.config import parse_config
 from lightwarden.exporters.app.wiring import build_monitor
@@ -17,9 +19,12 @@ from lightwarden.exporters.pages.status import StatusPage
 from lightwarden.fixtures.lab.model import LAB_ENV, LAB_SSH_PASSWORD
 from lightwarden.fixtures.lab.server import lab_site_config
 from lightwarden.rules.advice import LASER_CAUTION
+from lightwarden.rules.consistency import ALERTNAME
 
-SEVERITY = {"healthy": 0, "unknown": 1, "near_sensitivity": 2, "near_overload": 2,
-            "warning": 2, "below_sensitivity": 3, "overloaded": 3, "alarm": 3, "dark": 3}
+SEVERITY = {"healthy": 0, "unknown": 1, "latched_warning": 1, "near_sensitivity": 2,
+            "near_overload": 2, "warning": 2, "off_standard": 2, "not_ready": 2,
+            "latched_alarm": 2, "below_sensitivity": 3, "overloaded": 3, "alarm": 3, "dark": 3,
+            "laser_off": 3, "tx_fault": 3, "loss_of_signal": 3, "lane_imbalance": 2}
 
 
 @pytest.fixture(scope="module")
@@ -63,10 +68,16 @@ def test_api_lists_every_optic_worst_first_with_alerts(served):
                                                      "qm-dist-b"}
     assert all(d["up"] for d in doc["devices"])
     # lab.yaml story wrong_optic: a 10GBASE-ER part (1550 nm) facing a 10GBASE-LR one
-    # (1310 nm) on the qm-core-b sfp15 / qm-dist-b sfp15 span
-    kinds = {i["kind"] for i in doc["links"] if "sfp15" in i["text"]}
-    assert kinds == {"pmd-mismatch", "wavelength-mismatch"}, doc["links"]
-    assert all("sfp15" in i["text"] for i in doc["links"])
+    # (1310 nm) on the qm-core-b sfp15 / qm-dist-b sfp15 span. One cause, one finding:
+    # the PMD finding carries both wavelengths, so no separate wavelength finding.
+    wrong = [i for i in doc["links"] if i["port"] == "sfp15"]
+    assert [i["kind"] for i in wrong] == ["pmd-mismatch"], doc["links"]
+    assert "1310 nm and 1550 nm" in wrong[0]["text"]
+    # The consistency stories, and nothing else (the matched BiDi pair on sfp38 and the LX
+    # run over OM4 with mode-conditioning cords on sfp42 give no finding).
+    assert {label_tuple(i) for i in doc["links"]} == LAB_FINDINGS
+    opened = {label_tuple(a) for a in doc["alerts"] if a["alertname"] == ALERTNAME}
+    assert opened == LAB_FINDINGS
     hot = [a for a in doc["alerts"] if a["device"] == "qm-core-a" and a["port"] == "sfp31"]
     assert hot and "dB" in hot[0]["advice"]
     assert hot[0]["caution"] == LASER_CAUTION
@@ -80,7 +91,8 @@ def test_page_shows_worst_first_caution_and_no_secret(served):
     first_row = text.index("<tr class=crit>")
     assert first_row < text.index("<tr class=ok>")
     assert "Laser safety" in text
-    assert "Links whose ends do not match" in text
+    assert "Optics and plant that do not belong together" in text
+    assert "cwdm-channel-mismatch" in text
     for secret in (*LAB_ENV.values(), LAB_SSH_PASSWORD):
         assert secret not in text
 
@@ -91,3 +103,14 @@ def test_report_route_says_when_no_history_is_kept(served):
         urllib.request.urlopen(server.url + "/api/report", timeout=10)
     assert err.value.code == 404
     assert b"no history" in err.value.read()
+
+
+def test_metrics_carry_one_series_per_lab_finding(served):
+    server, _monitor = served
+    _ctype, body = _get(server.url + "/metrics")
+    found = {
+        label_tuple(x.labels)
+        for fam in text_string_to_metric_families(body.decode())
+        for x in fam.samples if x.name == "lightwarden_link_consistency" and x.value == 1
+    }
+    assert found == LAB_FINDINGS

@@ -32,7 +32,7 @@ _PHRASES = {
     "Supply Voltage": Quantity.SUPPLY,
 }
 _NAME = re.compile(r"^(?P<port>.+?) (?P<what>Rx Power|Tx Power|Bias|Temperature|Supply Voltage)"
-                   r"(?: Lane (?P<lane>\d+))?$")  # fmt: skip
+                   r"(?: Lane (?P<lane>\d+)| (?P<total>Total))?$")  # fmt: skip
 
 
 def cli_walk(address: str, auth: list[str], oid: str) -> dict[str, tuple[str, str]]:
@@ -57,13 +57,21 @@ def expected_readings(address: str, auth: list[str]) -> dict[Key, tuple]:
     walked = cli_walk(address, auth, SENSOR)
     names = cli_walk(address, auth, ENT_NAME)
     expected: dict[Key, tuple] = {}
+    # The contract's lanes are 1..N: a device numbering an optic's sensors from 0 has
+    # them shifted by one; a "Total" sensor is the all-lanes reading at lane 0.
+    base: dict[str, int] = {}
+    for _, name in names.values():
+        m = _NAME.match(name)
+        if m and m["lane"]:
+            base[m["port"]] = min(base.get(m["port"], 1), int(m["lane"]))
     for oid, (_, name) in names.items():
         index = oid.rsplit(".", 1)[1]
         match = _NAME.match(name)
         if f"{SENSOR}.1.{index}" not in walked or match is None:
             continue
         quantity = _PHRASES[match["what"]]
-        lane = int(match["lane"]) if match["lane"] else (
+        lane = int(match["lane"]) + 1 - base.get(match["port"], 1) if match["lane"] else (
+            0 if match["total"] else
             1 if quantity in (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS) else 0)
 
         def column(col: int, index: str = index) -> tuple[str, str]:

@@ -82,11 +82,13 @@ def start_snmpd(
     *,
     like: SnmpdAgent | None = None,
     replace: dict[str, str] | None = None,
+    dataset: str | None = None,
 ) -> SnmpdAgent:
     """Write the config, start snmpd in the foreground, wait until it answers.
 
     ``like`` reuses another (stopped) agent's port and credentials, to play a restart;
-    ``replace`` edits the dataset text (old line -> new line) to play a changed device.
+    ``replace`` edits the dataset text (old line -> new line) to play a changed device;
+    ``dataset`` serves other ``override`` lines instead of fixtures/snmpd/dataset.conf.
     """
     snmpd = require_binary(SNMPD)
     require_binary("snmpget")
@@ -98,7 +100,8 @@ def start_snmpd(
         privkey=like.privkey if like else "priv-" + secrets.token_hex(8),
         workdir=workdir,
     )
-    dataset = (FIXTURES / "dataset.conf").read_text()
+    if dataset is None:
+        dataset = (FIXTURES / "dataset.conf").read_text()
     for old, new in (replace or {}).items():
         if old not in dataset:
             raise ValueError(f"dataset.conf has no line {old!r} to replace")

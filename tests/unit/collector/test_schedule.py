@@ -236,3 +236,59 @@ def test_bad_intervals_are_refused():
     sched = PollScheduler(interval_s=5)
     with pytest.raises(ValueError, match="hgl-x"):
         sched.add_source(CountingSource("hgl-x"), interval_s=-1)
+
+
+def test_polls_in_flight_never_exceed_the_cap():
+    # 12 slow devices, cap 3: at most 3 polls run at once, and every device still gets its
+    # turn (the others wait for a slot rather than being dropped).
+    async def main():
+        sources = [CountingSource(f"qm-edge-{i:02d}", delay=0.05) for i in range(12)]
+        running = {"now": 0, "max": 0}
+
+        class Watch:
+            def __init__(self, inner):
+                self.inner, self.name = inner, inner.name
+
+            def close(self):
+                pass
+
+            async def poll(self, now):
+                running["now"] += 1
+                running["max"] = max(running["max"], running["now"])
+                try:
+                    return await self.inner.poll(now)
+                finally:
+                    running["now"] -= 1
+
+        sched = PollScheduler([Watch(s) for s in sources], interval_s=0.2, max_in_flight=3,
+                              start_spread_s=0.0)  # fmt: skip
+        sched.start()
+        try:
+            await _until(lambda: all(s.finished for s in sources), "every device polled")
+        finally:
+            await sched.shutdown()
+        return running["max"]
+
+    assert asyncio.run(main()) == 3
+
+
+def test_cap_must_be_positive():
+    with pytest.raises(ValueError, match="in flight"):
+        PollScheduler(interval_s=1.0, max_in_flight=0)
+
+
+def test_first_polls_spread_over_the_whole_interval(monkeypatch):
+    # With no start spread given, the first poll of each device lands anywhere in its
+    # interval, not only inside the jitter (which bunched a fleet's first cycle).
+    bounds: list[float] = []
+    monkeypatch.setattr("lightwarden.collector.schedule.random.uniform",
+                        lambda low, high: bounds.append(high) or 0.0)  # fmt: skip
+
+    async def main():
+        sched = PollScheduler([CountingSource("qm-a")], interval_s=45.0, jitter_s=5.0)
+        sched.add_source(CountingSource("qm-b"), interval_s=300.0)
+        sched.start()
+        await sched.shutdown()
+
+    asyncio.run(main())
+    assert sorted(bounds) == [45.0, 300.0]

@@ -27,8 +27,10 @@ JSON_FIELDS = {
     "temperature_c", "supply_v", "rx_overload_dbm", "rx_sensitivity_dbm",
     "margin_to_overload_db", "margin_to_sensitivity_db", "window_source", "condition", "notes",
 }
-SEVERITY = {"healthy": 0, "unknown": 1, "near_sensitivity": 2, "near_overload": 2,
-            "warning": 2, "below_sensitivity": 3, "overloaded": 3, "alarm": 3, "dark": 3}
+SEVERITY = {"healthy": 0, "unknown": 1, "latched_warning": 1, "near_sensitivity": 2,
+            "near_overload": 2, "warning": 2, "off_standard": 2, "not_ready": 2,
+            "latched_alarm": 2, "below_sensitivity": 3, "overloaded": 3, "alarm": 3, "dark": 3,
+            "laser_off": 3, "tx_fault": 3, "loss_of_signal": 3, "lane_imbalance": 2}
 
 
 def lightwarden(*args: str, env: dict[str, str] | None = None, timeout: float = 120,
@@ -89,8 +91,10 @@ def lab_process(tmp_path_factory: pytest.TempPathFactory):
             proc.kill()
 
 
-def _site(tmp: Path, endpoints, name: str, devices: list[str] | None = None) -> Path:
-    data = lab_site_config(endpoints, secrets="env", known_hosts=str(endpoints.known_hosts))
+def _site(tmp: Path, endpoints, name: str, devices: list[str] | None = None,
+          plant: bool = False) -> Path:
+    data = lab_site_config(endpoints, secrets="env", known_hosts=str(endpoints.known_hosts),
+                           lab=Lab.load() if plant else None)
     if devices is not None:
         data["devices"] = [d for d in data["devices"] if d["name"] in devices]
     path = tmp / name
@@ -100,30 +104,37 @@ def _site(tmp: Path, endpoints, name: str, devices: list[str] | None = None) -> 
 
 def test_check_json_has_every_optic_and_lane_worst_first(lab_process):
     _base, endpoints, tmp = lab_process
-    site = _site(tmp, endpoints, "site.yaml")
+    site = _site(tmp, endpoints, "site.yaml", plant=True)
     res = lightwarden("check", "-c", str(site), "--json", env=LAB_ENV)
     assert res.returncode == 1, res.stderr  # the lab has scripted faults: findings
     rows = json.loads(res.stdout)
     lab = Lab.load()
-    expected = sum(p.optic.part.lanes for p in lab.optic_ports())  # type: ignore[union-attr]
+    # one row per lane, plus one for a total-power sensor (lab story total_power_sensor;
+    # only the SNMP agents offer it, and the lab config polls that device over SNMP)
+    expected = sum(p.optic.part.lanes + p.optic.total_rx_sensor  # type: ignore[union-attr]
+                   for p in lab.optic_ports())
     assert len(rows) == expected
     for r in rows:
         assert set(r) >= JSON_FIELDS, r
-        assert r["window_source"] in {"site", "module", "pmd-table", "practice", "none"}
+        assert r["window_source"] in {"site", "module", "standard", "practice", "none"}
         if r["rx_power_dbm"] is None:
             assert r["notes"], r  # an unavailable value always says why
     sev = [SEVERITY[r["condition"]] for r in rows]
     assert sev == sorted(sev, reverse=True)
     by_port = {(r["device"], r["port"], r["lane"]): r for r in rows}
     hot = by_port[("qm-core-a", "sfp31", 1)]
-    # The lab config reads memory maps, so the window is the module's: the TK-10GER-40
-    # high alarm declared in lab.yaml (1.0 dBm, within one 0.1 uW register step). Without
-    # maps it would be the PMD table's (IEEE 802.3 cl.52 10GBASE-ER overload -1.0 dBm,
-    # standards.md, from memory); both sit below the hot receiver's level.
-    assert hot["window_source"] == "module"
+    # Two judgements, both in the row with their sources: the margin edge is the
+    # standard's (IEEE 802.3 cl.52 10GBASE-ER overload -1.0 dBm, standards.md, from
+    # memory), the module's own high alarm the TK-10GER-40 level declared in lab.yaml
+    # (1.0 dBm, within one 0.1 uW register step, read from the memory map); both sit
+    # below the hot receiver's level.
+    assert hot["rx_edges"]["overload"] == {"value": -1.0, "source": "standard"}
     declared = lab.devices["qm-core-a"].port("sfp31").optic.part.thresholds["rx_power"][0]
-    assert hot["rx_overload_dbm"] == pytest.approx(declared, abs=1e-3)
+    assert hot["rx_edges"]["high_alarm"]["source"] == "module"
+    assert hot["rx_edges"]["high_alarm"]["value"] == pytest.approx(declared, abs=1e-3)
+    assert hot["rx_overload_dbm"] == -1.0
     assert hot["condition"] == "overloaded"
+    assert hot["edge"]["name"] == "overload" and hot["edge"]["source"] == "standard"
     # margin to overload = overload - Rx (dB arithmetic; standards.md practice)
     assert hot["margin_to_overload_db"] == pytest.approx(
         hot["rx_overload_dbm"] - hot["rx_power_dbm"], abs=2e-3)
@@ -133,6 +144,31 @@ def test_check_json_has_every_optic_and_lane_worst_first(lab_process):
     assert by_port[("qm-core-a", "sfp2", 1)]["bias_ma"] is None
     lr4 = [r for r in rows if r["device"] == "qm-core-a" and r["port"] == "qsfp1"]
     assert sorted(r["lane"] for r in lr4) == [1, 2, 3, 4]
+    # Lab stories (lab.yaml) through check --json:
+    # lanes_from_zero: qm-core-a qsfp2's sensors are named lanes 0..3, read as 1..4
+    assert sorted(r["lane"] for r in rows
+                  if (r["device"], r["port"]) == ("qm-core-a", "qsfp2")) == [1, 2, 3, 4]
+    # total_power_sensor: qm-core-b qsfp2 has a lane-0 row judged against 4 lanes' sum
+    (total,) = [r for r in rows if (r["device"], r["port"], r["lane"]) == ("qm-core-b",
+                                                                           "qsfp2", 0)]
+    assert any("total power of 4 lanes" in n for n in total["notes"])
+    # tx_fault: the module flags TX_FAULT; its far receiver (by the plant record) is
+    # dark and caused by it
+    fault = by_port[("qm-core-b", "sfp27", 1)]
+    assert fault["condition"] == "tx_fault"
+    assert any("TX_FAULT" in n for n in fault["notes"])
+    far = by_port[("qm-core-a", "sfp27", 1)]
+    assert (far["condition"], far["cause"]) == ("dark", "qm-core-b|sfp27|1|tx_power")
+    # every lane with a far end in the plant carries its span, measured both ways and as
+    # engineered (span loss = Tx at one end - Rx at the other: standards.md, practice)
+    spans = [r for r in rows if r["span"]]
+    assert len(spans) >= 150
+    lit = by_port[("qm-core-a", "sfp31", 1)]["span"]
+    assert lit["far"] == "qm-core-b sfp31"
+    assert lit["loss_in_db"] > 0 and lit["loss_out_db"] > 0 and lit["engineered_db"] > 0
+        # dark_port: this end's laser is off (bias 0 mA), the far receiver caused by it
+    assert by_port[("qm-core-a", "sfp20", 1)]["condition"] == "laser_off"
+    assert by_port[("qm-dist-b", "sfp20", 1)]["cause"] == "qm-core-a|sfp20|1|tx_power"
 
 
 def test_check_table_and_exit_zero_when_all_healthy(lab_process):
@@ -140,7 +176,7 @@ def test_check_table_and_exit_zero_when_all_healthy(lab_process):
     site = _site(tmp, endpoints, "dist-a.yaml", devices=["qm-dist-a"])
     res = lightwarden("check", "-c", str(site), env=LAB_ENV)
     assert res.returncode == 0, res.stdout + res.stderr
-    lines = res.stdout.splitlines()
+    lines = res.stdout.split("\n\n")[0].splitlines()  # the table, before notes and advice
     assert lines[0].startswith("DEVICE")
     assert len(lines) == 1 + sum(
         p.optic.part.lanes for p in Lab.load().devices["qm-dist-a"].ports if p.optic
@@ -159,6 +195,26 @@ def test_adhoc_check_by_host_and_community(lab_process):
     # The community is never echoed, even when given on the command line.
     res2 = lightwarden("check", f"127.0.0.1:{base}", "--community", LAB_COMMUNITY)
     assert LAB_COMMUNITY not in res2.stdout + res2.stderr
+
+
+def test_adhoc_check_reads_maps_and_agrees_with_the_configured_check(lab_process):
+    # Ad hoc and configured checks of the same device agree once both read module maps:
+    # the module's own levels (here the TK-10GER-40's high alarm in lab.yaml) and its
+    # flags come from the map, not from the ENTITY-MIB sensors alone.
+    base, endpoints, tmp = lab_process
+    oid = "1.3.6.1.4.1.32473.7.1.1"  # the lab's map column (fixtures/lab/snmp_agent.py)
+    res = lightwarden("check", f"127.0.0.1:{base}", "--community-env", "LW_LAB_COMMUNITY",
+                      "--eeprom-oid", oid, "--json", env=LAB_ENV)
+    assert res.returncode == 1, res.stderr
+    adhoc = {(r["port"], r["lane"]): r for r in json.loads(res.stdout)}
+    site = _site(tmp, endpoints, "one.yaml", devices=["qm-core-a"])
+    configured = {(r["port"], r["lane"]): r for r in json.loads(
+        lightwarden("check", "-c", str(site), "--json", env=LAB_ENV).stdout)}
+    assert adhoc.keys() == configured.keys()
+    for key, row in configured.items():
+        assert adhoc[key]["condition"] == row["condition"], key
+        assert adhoc[key]["rx_edges"] == row["rx_edges"], key
+    assert adhoc[("sfp31", 1)]["rx_edges"]["high_alarm"]["source"] == "module"
 
 
 def test_check_collection_error_exits_2_and_names_device(tmp_path: Path):
@@ -225,15 +281,50 @@ def test_check_says_what_to_do_with_the_laser_caution(lab_process):
     text = res.stdout
     assert "What to do:" in text
     # the hot 10GBASE-ER receiver gets a stocked pad (standards.md practice: 1, 3, 5, 7,
-    # 10, 15, 20 dB); the dark port gets the far-end checks
+    # 10, 15, 20 dB); the port whose own laser is off (lab story dark_port: the
+    # transmitter at qm-core-a sfp20 disabled) is told to look at this end, not the far one
     pad = re.search(r"qm-core-a sfp31 lane 1 \(overloaded\): .*?attenuator of (\d+) dB", text)
     assert pad and int(pad.group(1)) in {1, 3, 5, 7, 10, 15, 20}, text
-    assert "qm-core-a sfp20 lane 1 (dark)" in text
+    off = re.search(r"qm-core-a sfp20 lane 1 \(laser_off\): (.*)", text)
+    assert off and "disabled on purpose" in off.group(1) and "far-end" not in off.group(1), text
     assert "never look into a fibre end" in text
     rows = json.loads(lightwarden("check", "-c", str(site), "--json", env=LAB_ENV).stdout)
     hot = next(r for r in rows if r["port"] == "sfp31")
     assert "attenuator" in hot["advice"] and "Laser safety" in hot["caution"]
     assert all(r["advice"] == "" for r in rows if r["condition"] == "healthy")
+
+
+def test_check_shows_the_lab_consistency_stories(lab_process):
+    """lab.yaml's consistency stories through `check` (text and --json), with the plant."""
+    _base, endpoints, tmp = lab_process
+    data = lab_site_config(endpoints, secrets="env", known_hosts=str(endpoints.known_hosts),
+                           lab=Lab.load())
+    site = tmp / "site-plant.yaml"
+    site.write_text(yaml.safe_dump(data))
+    res = lightwarden("check", "-c", str(site), "--json", env=LAB_ENV)
+    assert res.returncode == 1, res.stderr
+    rows = json.loads(res.stdout)
+    found = {(r["device"], r["port"]): {(f["kind"], f["severity"]) for f in r["findings"]}
+             for r in rows if r["findings"]}
+    # Span findings show at both ends. Kinds and severities are ours; 1471/1491 nm are
+    # adjacent ITU-T G.694.2 channels; 1310/1570 nm is no common BiDi pair (practice).
+    bidi = {("bidi-not-complementary", "warning")}
+    cwdm = {("cwdm-channel-mismatch", "critical")}
+    sm_on_mm = {("fibre-type-mismatch", "warning")}
+    wrong = {("pmd-mismatch", "warning")}
+    assert found == {
+        ("qm-core-a", "sfp37"): bidi, ("qm-core-b", "sfp37"): bidi,
+        ("qm-core-a", "sfp39"): cwdm, ("qm-core-b", "sfp39"): cwdm,
+        ("qm-dist-a", "sfp41"): sm_on_mm, ("qm-dist-b", "sfp41"): sm_on_mm,
+        ("qm-core-b", "sfp15"): wrong, ("qm-dist-b", "sfp15"): wrong,
+    }
+    cw = next(r for r in rows if (r["device"], r["port"]) == ("qm-core-a", "sfp39"))
+    cw = cw["findings"][0]
+    assert "1471 nm (channel 1471 nm) vs 1491 nm (channel 1491 nm), 20 nm apart" in cw["text"]
+    text = lightwarden("check", "-c", str(site), env=LAB_ENV).stdout
+    assert "Optics and plant that do not belong together:" in text
+    assert "critical cwdm-channel-mismatch: qm-core-a sfp39 / qm-core-b sfp39" in text
+    assert "plant records OM4 multimode fibre" in text
 
 
 def test_lab_on_a_busy_port_is_a_clear_error(lab_process):

@@ -33,6 +33,7 @@ from lightwarden.exporters.prometheus.exposition import (
     escape_label_value,
     render_alerts,
 )
+from lightwarden.rules.assess import assess
 from lightwarden.rules.findings import (
     AlertEvent,
     AlertKind,
@@ -119,8 +120,8 @@ def test_window_edges_and_margins(exposition: Exposition) -> None:
     found = samples(exposition.body())
     sfp = {"device": DEV, "port": "sfp1", "lane": 1}
     # source: standards.md / IEEE 802.3 10GBASE-LR row (verified): overload +0.5, Rx min -14.4
-    assert one(found["lightwarden_rx_overload_dbm"], **sfp, window_source="pmd-table") == 0.5
-    assert one(found["lightwarden_rx_sensitivity_dbm"], **sfp, window_source="pmd-table") == -14.4
+    assert one(found["lightwarden_rx_overload_dbm"], **sfp, window_source="standard") == 0.5
+    assert one(found["lightwarden_rx_sensitivity_dbm"], **sfp, window_source="standard") == -14.4
     rx = 10 * math.log10(0.8)
     assert one(found["lightwarden_rx_margin_to_overload_db"], **sfp) == pytest.approx(
         LR_OVERLOAD_DBM - rx
@@ -160,7 +161,8 @@ def test_no_light_is_not_a_number(exposition: Exposition) -> None:
         for lab, _ in found["lightwarden_rx_power_dbm"]
         if lab.items() >= {("device", DEV), ("port", ODD_PORT), ("lane", "3")}
     ]
-    assert one(found["lightwarden_optic_dark"], **dark) == 1
+    assert one(found["lightwarden_reading_condition"], **dark, quantity="rx_power",
+               condition="dark") == 1
     assert one(found["lightwarden_reading_unavailable"], **dark, quantity="rx_power") == 1
     assert (
         one(
@@ -240,12 +242,20 @@ def test_condition_and_severity(exposition: Exposition) -> None:
     assert one(found["lightwarden_optic_severity"], device=DEV, port=ODD_PORT) == 3
 
 
-def test_module_threshold_flags(exposition: Exposition) -> None:
-    found = samples(exposition.body())
-    # bias 12 mA against the module's high warning 10 mA and high alarm 15 mA
-    warn = [lab for lab, _ in found["lightwarden_threshold_warning"] if lab["device"] == DEV]
-    assert warn == [{"device": DEV, "port": "sfp1", "lane": "1", "quantity": "bias"}]
-    assert "lightwarden_threshold_alarm" not in found
+def test_reading_conditions_are_the_rule_layers_judgement() -> None:
+    # Judged by assess(): bias 12 mA is past the module's 10 mA high warning and inside
+    # its 15 mA alarm; the lab's LR4 lane 3 reads no light. The family carries exactly
+    # the rule layer's held conditions at warning or worse, with the edge and its source.
+    batch = lab_batch(DEV)
+    exp = Exposition()
+    exp.update(ok_outcome(batch), assess(batch))
+    found = samples(exp.body())["lightwarden_reading_condition"]
+    got = sorted((lab["port"], lab["lane"], lab["quantity"], lab["condition"], lab["edge"],
+                  lab["source"], lab["cause"]) for lab, v in found if v == 1)
+    assert got == [
+        ("sfp1", "1", "bias", "warning", "high_warning", "module", ""),
+        (ODD_PORT, "3", "rx_power", "dark", "sensitivity", "standard", ""),
+    ]
 
 
 def test_headers_once_per_family_across_devices(exposition: Exposition) -> None:

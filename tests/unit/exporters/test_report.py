@@ -156,8 +156,10 @@ def test_lab_backfill_shows_the_wearing_laser_and_its_forecast(tmp_path: Path):
 
     lab.yaml story laser_wear: qm-dist-a sfp5's Tx falls 0.06 dB/day (from 30 days before
     the lab epoch); its far end qm-core-a sfp5 receives it, so that Rx falls at the same
-    rate. With the module's declared Rx low alarm of -18 dBm (lab.yaml LF-10GLR-10) and
-    the 3 dB margin target (common practice), the target is lost at -15 dBm.
+    rate. Margins are measured to the standard's edge where the PMD is known: 10GBASE-LR
+    minimum average receive power -14.4 dBm (IEEE 802.3 cl.52, standards.md, verified),
+    not the module's looser -18 dBm alarm (lab.yaml LF-10GLR-10); with the 3 dB margin
+    target (common practice) the target is lost at -11.4 dBm.
     """
     from lightwarden.exporters.store.history import History
     from lightwarden.fixtures.lab.backfill import backfill, lab_batch
@@ -183,10 +185,10 @@ def test_lab_backfill_shows_the_wearing_laser_and_its_forecast(tmp_path: Path):
     plant = build_plant(cfg.plant, monitor.catalogue)
     report = build_report(history, plant, monitor.targets, wall_now, days=25)
     lane = next(o for o in report.lanes if (o.device, o.port) == ("qm-core-a", "sfp5"))
-    assert lane.window_source == "module" and lane.sensitivity_dbm == pytest.approx(-18.0)
+    assert lane.window_source == "standard" and lane.sensitivity_dbm == pytest.approx(-14.4)
     assert lane.rate_db_per_day == pytest.approx(-0.06, abs=0.005)
     assert lane.laser_worn is True and lane.laser_note.startswith("far end")
-    days_left = (lane.rx_power_dbm - (-15.0)) / 0.06
+    days_left = (lane.rx_power_dbm - (-11.4)) / 0.06
     assert lane.target_lost_at == pytest.approx(wall_now + days_left * DAY, rel=0, abs=8 * DAY)
     healthy = next(o for o in report.lanes if (o.device, o.port) == ("qm-core-a", "sfp6"))
     assert healthy.target_lost_at is None and healthy.laser_worn is False

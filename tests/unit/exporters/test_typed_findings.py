@@ -57,6 +57,14 @@ EXPECTED = {
     Condition.OVERLOADED: Severity.CRITICAL,
     Condition.ALARM: Severity.CRITICAL,
     Condition.DARK: Severity.CRITICAL,
+    Condition.LASER_OFF: Severity.CRITICAL,
+    Condition.OFF_STANDARD: Severity.WARNING,
+    Condition.TX_FAULT: Severity.CRITICAL,
+    Condition.LOSS_OF_SIGNAL: Severity.CRITICAL,
+    Condition.NOT_READY: Severity.WARNING,
+    Condition.LATCHED_ALARM: Severity.WARNING,
+    Condition.LATCHED_WARNING: Severity.INFO,
+    Condition.LANE_IMBALANCE: Severity.WARNING,
 }
 #: The status page's row colours (ours).
 PAGE_CLASS = {Severity.NONE: "ok", Severity.INFO: "unknown", Severity.WARNING: "warn",
@@ -173,7 +181,9 @@ def test_event_words_are_unchanged():
     # The words every receiver, row and snapshot has always seen.
     assert [k.value for k in AlertKind] == ["open", "update", "stale", "resolve"]
     assert [s.value for s in AlertSeverity] == ["warning", "critical"]
-    assert [w.word for w in WindowSource] == ["none", "pmd-table", "module", "site", "practice"]
+    # The standard's edges were once written "pmd-table": still read, now written "standard".
+    assert [w.word for w in WindowSource] == ["none", "standard", "module", "site", "practice"]
+    assert WindowSource.from_word("pmd-table") is WindowSource.PMD_TABLE
     assert [q.label for q in Quantity] == ["rx_power", "tx_power", "bias", "temperature",
                                            "supply"]
 

@@ -10,10 +10,8 @@ from support.assessments import ER_OVERLOAD, ER_SENSITIVITY
 from lightwarden.collector.readings import Quantity
 from lightwarden.rules.advice import (
     LASER_CAUTION,
-    STOCKED_PADS_DB,
     AdviceContext,
     advise,
-    pad_advice,
     resolved_summary,
     summarize,
 )
@@ -24,76 +22,39 @@ from lightwarden.rules.trend import WearVerdict
 TARGETS = MarginTargets()  # 3 dB above sensitivity, 1 dB below overload (practice)
 
 
-def test_stocked_steps_are_the_usual_ones():
-    # source: standards.md "Rules of thumb" (common practice)
-    assert STOCKED_PADS_DB == (1.0, 3.0, 5.0, 7.0, 10.0, 15.0, 20.0)
+def test_hot_er_receiver_is_padded_for_the_worst_case_not_the_middle():
+    # source: standards.md IEEE 802.3 cl.52 10GBASE-ER, Tx -4.7..+4.0, overload -1.0, Rx
+    # min -15.8 dBm (from memory); margin targets 3 dB / 1 dB (common practice), 0.5 dB
+    # hysteresis (ours). Rx +2.0 dBm on a 1.5 dB span: the far end may launch -4.7 dBm,
+    # so the low corner is -6.2 dBm; 5 dB keeps both (-3.0 and -11.2), 10 dB (the old
+    # mid-window choice) would leave -16.2 dBm, below sensitivity.
+    ctx = AdviceContext(far_device="qm-core-b", far_port="sfp31", far_tx_min_dbm=-4.7,
+                        far_tx_max_dbm=4.0, far_window_from="standard", span_loss_db=1.5,
+                        span_loss_from="measured")
+    adv = advise(Condition.OVERLOADED, Quantity.RX_POWER, 2.0, low_edge=ER_SENSITIVITY,
+                 high_edge=ER_OVERLOAD, context=ctx)
+    assert "fixed attenuator of 5 dB" in adv.text and "-11.2 dBm" in adv.text
+    assert adv.caution == LASER_CAUTION
 
 
-def test_pad_for_hot_receiver_on_10gbase_er():
-    # source: standards.md IEEE 802.3 cl.52 10GBASE-ER, overload -1.0 / Rx min -15.8 dBm
-    # (from memory); margin targets 3 dB / 1 dB (common practice).
-    # Acceptable Rx: [-12.8, -2.0]; window middle -8.4. 5 -> -3.0, 7 -> -5.0, 10 -> -8.0,
-    # 15 -> -13.0 (too low); -8.0 is nearest the middle.
-    adv = pad_advice(2.0, ER_OVERLOAD, ER_SENSITIVITY, TARGETS)
-    assert adv.pad_db == 10.0 and adv.fits
-    assert adv.expected_rx_dbm == pytest.approx(-8.0)
+def test_unknown_far_end_says_what_was_assumed():
+    ctx = AdviceContext(own_tx_min_dbm=-4.7, own_tx_max_dbm=4.0)
+    adv = advise(Condition.OVERLOADED, Quantity.RX_POWER, 2.0, low_edge=ER_SENSITIVITY,
+                 high_edge=ER_OVERLOAD, context=ctx)
+    assert "assumed: the far end is of the same PMD" in adv.text
+    # 2.0 - 8.7 = -6.7 dBm low corner: 5 dB keeps -11.7 >= -12.8
+    assert "fixed attenuator of 5 dB" in adv.text
 
 
-def test_pad_on_verified_10gbase_lr_window():
-    # source: standards.md IEEE 802.3 cl.52 10GBASE-LR, overload +0.5 / Rx min -14.4 dBm
-    # (verified). Acceptable [-11.4, -0.5], middle -6.95: 7 dB -> -6.0 beats 10 dB -> -9.0.
-    adv = pad_advice(1.0, 0.5, -14.4, TARGETS)
-    assert (adv.pad_db, adv.fits) == (7.0, True)
-    assert adv.expected_rx_dbm == pytest.approx(-6.0)
-
-
-def test_pad_lowers_rx_by_its_value_in_db():
-    # source: standards.md dB arithmetic (common practice): -2.0 dBm in, 10 dB pad,
-    # -12.0 dBm out. Window 1000BASE-LX overload -3 / Rx min -19 dBm (standards.md, from
-    # memory): acceptable [-16, -4], middle -11, so 10 dB (-12.0) beats 7 dB (-9.0).
-    adv = pad_advice(-2.0, -3.0, -19.0, TARGETS)
-    assert adv.pad_db == 10.0
-    assert adv.expected_rx_dbm == pytest.approx(-12.0)
-
-
-@pytest.mark.parametrize("rx", [-1.5, 0.0, 2.0, 4.5, 7.9])
-def test_chosen_pad_keeps_both_targets_and_is_nearest_the_middle(rx):
-    # Property over the 10GBASE-ER window (standards.md, from memory): any fitting pad
-    # keeps both margin targets, and no other stocked step lands nearer the middle.
-    adv = pad_advice(rx, ER_OVERLOAD, ER_SENSITIVITY, TARGETS, require_pad=True)
-    assert adv.fits and adv.pad_db in STOCKED_PADS_DB
-    out = rx - adv.pad_db
-    assert ER_SENSITIVITY + 3.0 <= out <= ER_OVERLOAD - 1.0
-    middle = (ER_OVERLOAD + ER_SENSITIVITY) / 2
-    for step in STOCKED_PADS_DB:
-        if ER_SENSITIVITY + 3.0 <= rx - step <= ER_OVERLOAD - 1.0:
-            assert abs(out - middle) <= abs(rx - step - middle)
-
-
-def test_no_pad_when_rx_keeps_its_margins_and_none_when_low():
-    fine = pad_advice(-8.0, ER_OVERLOAD, ER_SENSITIVITY, TARGETS)
-    assert (fine.pad_db, fine.fits) == (0.0, True)
-    low = pad_advice(-14.0, ER_OVERLOAD, ER_SENSITIVITY, TARGETS)
-    assert low.pad_db is None and not low.fits and "worse" in low.reason
-
-
-def test_too_hot_even_for_the_largest_pad():
-    adv = pad_advice(25.0, ER_OVERLOAD, ER_SENSITIVITY, TARGETS)
-    assert adv.pad_db == 20.0 and not adv.fits and "20 dB" in adv.reason
-
-
-def test_window_narrower_than_targets_says_so():
-    adv = pad_advice(1.0, 0.0, -3.0, TARGETS)  # acceptable range [0, -1] is empty
-    assert not adv.fits and "too narrow" in adv.reason
-    assert adv.expected_rx_dbm < 0.0  # still clears overload
-
-
-def test_unknown_sensitivity_keeps_only_the_overload_target():
-    adv = pad_advice(2.0, ER_OVERLOAD, math.nan, TARGETS)
-    assert adv.fits and adv.expected_rx_dbm <= ER_OVERLOAD - 1.0
-    # 3 dB would give -1.0 dBm, on the overload edge; 5 dB (-3.0) is the smallest step
-    # that keeps the 1 dB overload target.
-    assert (adv.pad_db, adv.expected_rx_dbm) == (5.0, -3.0)
+def test_a_launch_two_compliant_optics_cannot_make_is_questioned_not_padded():
+    # 10GBASE-LR Tx max +0.5 dBm = overload +0.5 dBm (IEEE 802.3 cl.52, standards.md,
+    # verified): Rx +1.0 dBm over an engineered 1.2 dB (0.5 km) implies +2.2 dBm.
+    ctx = AdviceContext(far_tx_min_dbm=-8.2, far_tx_max_dbm=0.5, span_loss_db=1.2,
+                        span_loss_from="engineered")
+    adv = advise(Condition.OVERLOADED, Quantity.RX_POWER, 1.0, low_edge=-14.4, high_edge=0.5,
+                 context=ctx)
+    assert "above its window maximum" in adv.text and "attenuator of" not in adv.text
+    assert adv.caution == LASER_CAUTION
 
 
 def _has_all_safety_words(text: str) -> bool:
@@ -122,7 +83,7 @@ def test_caution_text_carries_every_safety_point():
     ("condition", "quantity", "value", "words", "handling"),
     [
         (Condition.NEAR_OVERLOAD, Quantity.RX_POWER, -1.5, ["fixed attenuator of"], True),
-        (Condition.OVERLOADED, Quantity.RX_POWER, 2.0, ["10 dB at the receiver", "-8.0"], True),
+        (Condition.OVERLOADED, Quantity.RX_POWER, 2.0, ["5 dB at the receiver", "-3.0"], True),
         (
             Condition.NEAR_SENSITIVITY,
             Quantity.RX_POWER,

@@ -1,4 +1,5 @@
-"""Span loss: engineered budget (ITU-T G.652 App. I form), measured loss, link consistency."""
+"""Span loss: engineered budget (ITU-T G.652 App. I form), measured loss (consistency of the
+ends: test_consistency.py)."""
 
 from __future__ import annotations
 
@@ -18,7 +19,6 @@ from lightwarden.rules.spanloss import (
     WITHIN_BUDGET,
     PlanningCoefficients,
     PlantSpan,
-    check_link,
     engineered_loss_db,
     fibre_db_per_km,
     judge_span_loss,
@@ -127,37 +127,3 @@ def test_growth_against_the_span_baseline():
     recent = np.array([7.8, 7.6, 7.7, np.nan])
     assert span_loss_growth(base, recent) == pytest.approx(1.5)
     assert span_loss_growth(base, recent[:2]) is None
-
-
-def _optic(device, pmd, nm):
-    return OpticIdentity(device=device, port="sfp1", pmd=pmd, wavelength_nm=nm)
-
-
-def test_matching_ends_raise_nothing():
-    assert check_link(_optic("a", "10GBASE-LR", 1310), _optic("b", "10GBASE-LR", 1310)) == []
-    # Unknown facts are not faults.
-    assert check_link(_optic("a", "", None), _optic("b", "10GBASE-LR", 1310)) == []
-
-
-def test_wavelength_and_pmd_mismatch():
-    issues = check_link(_optic("a", "10GBASE-LR", 1310), _optic("b", "10GBASE-SR", 850))
-    kinds = {i.kind: i.severity for i in issues}
-    assert kinds == {"pmd-mismatch": "warning", "wavelength-mismatch": "critical"}
-    assert "1310 vs 850 nm" in issues[1].text
-
-
-def test_bidi_pairs_must_be_complementary():
-    # source: standards.md "Rules of thumb" (common practice): BiDi optics work only as
-    # complementary pairs, e.g. 1310/1550 or 1270/1330 nm; same wavelength does not link.
-    up, down = _optic("a", "10GBASE-BR10-U", 1270), _optic("b", "10GBASE-BR10-D", 1330)
-    assert check_link(up, down) == []
-    assert (
-        check_link(_optic("a", "1000BASE-BX10-U", 1310), _optic("b", "1000BASE-BX10-D", 1550)) == []
-    )
-    same = check_link(_optic("a", "1000BASE-BX10-U", 1310), _optic("b", "1000BASE-BX10-U", 1310))
-    assert [i.kind for i in same] == ["bidi-same-wavelength"]
-    odd = check_link(_optic("a", "BIDI-20", 1310), _optic("b", "BIDI-20", 1610))
-    assert [i.kind for i in odd] == ["bidi-not-complementary"]
-    # Plant record says single fibre even though the PMD names are unknown.
-    forced = check_link(_optic("a", "", 1550), _optic("b", "", 1550), bidi=True)
-    assert [i.kind for i in forced] == ["bidi-same-wavelength"]

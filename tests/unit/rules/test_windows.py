@@ -59,24 +59,38 @@ def test_unknown_pmd_is_noted_and_leaves_power_unjudged():
     assert "10GBASE-XYZ" in ws.window(RX).note
 
 
-def test_module_thresholds_beat_the_pmd_table():
-    # Vendor-style thresholds looser than the PMD: the module wins, a note says by how much.
+def test_both_judgements_keep_their_own_edges():
+    # Vendor-style levels looser than the PMD: the standard gives the margin edges, the
+    # module its own alarm and warning levels, and a note says by how much it is looser.
     t = Thresholds(high_alarm=2.5, low_alarm=-18.0, high_warning=0.5, low_warning=-16.0)
     rx = resolve_windows(optic(thresholds={RX: t}), CAT).window(RX, 1)
-    assert (rx.low_edge, rx.high_edge, rx.low_warning, rx.high_warning) == (-18.0, 2.5, -16.0, 0.5)
+    # source: standards.md 10GBASE-LR Rx min -14.4 / overload +0.5 (IEEE 802.3 cl.52, verified)
+    assert (rx.low_edge, rx.high_edge) == (-14.4, 0.5)
+    assert (rx.low_alarm, rx.high_alarm, rx.low_warning, rx.high_warning) == (
+        -18.0, 2.5, -16.0, 0.5)
+    assert rx.sources == (WindowSource.PMD_TABLE, WindowSource.PMD_TABLE) + (
+        WindowSource.MODULE,) * 4
     assert rx.source is WindowSource.MODULE
-    # 10GBASE-LR Rx min -14.4 (verified): -18.0 is 3.6 dB looser; overload +0.5: 2.0 dB
+    # -18.0 is 3.6 dB looser than -14.4; +2.5 is 2.0 dB above +0.5
+    assert "module looser than the standard" in rx.note
     assert "3.6 dB below the 10GBASE-LR minimum average receive power -14.4" in rx.note
     assert "2.0 dB above the 10GBASE-LR overload 0.5" in rx.note
 
 
-def test_per_edge_mixing_module_and_pmd():
-    t = Thresholds(high_alarm=-1.0)  # module declares only the overload side
-    rx = resolve_windows(optic(thresholds={RX: t}), CAT).window(RX, 1)
-    assert (rx.low_edge, rx.high_edge) == (-14.4, -1.0)
-    assert rx.sources[:2] == (WindowSource.PMD_TABLE, WindowSource.MODULE)
-    assert rx.source is WindowSource.MODULE  # the most authoritative contributor
-    assert "sensitivity from pmd-table, overload from module" in rx.note
+def test_margin_edges_fall_back_to_module_alarms_without_a_pmd():
+    t = Thresholds(high_alarm=2.5, low_alarm=-18.0)
+    rx = resolve_windows(optic(pmd="", thresholds={RX: t}), CAT).window(RX, 1)
+    assert (rx.low_edge, rx.high_edge, rx.low_alarm, rx.high_alarm) == (-18.0, 2.5, -18.0, 2.5)
+    assert rx.sources[:4] == (WindowSource.MODULE,) * 4
+
+
+def test_per_edge_mixing_site_and_standard():
+    o = WindowOverride(quantity=RX, port="eth1/7", rx_sensitivity=-12.0)
+    rx = resolve_windows(optic(), CAT, [o]).window(RX, 1)
+    assert (rx.low_edge, rx.high_edge) == (-12.0, 0.5)
+    assert rx.sources[:2] == (WindowSource.SITE, WindowSource.PMD_TABLE)
+    assert rx.source is WindowSource.SITE  # the most authoritative contributor
+    assert "sensitivity from site, overload from standard" in rx.note
 
 
 def test_blank_module_thresholds_are_ignored():
@@ -94,18 +108,27 @@ def test_non_finite_module_edges_are_treated_as_absent():
 
 
 def test_crossed_edges_keep_the_more_authoritative():
-    # Module overload -20 dBm lies below the PMD sensitivity -14.4: the PMD edge goes.
+    # A module high alarm of -20 dBm lies below the standard's -14.4 dBm sensitivity: it
+    # would flag every reading, so the module's level goes and the standard stays.
     rx = resolve_windows(optic(thresholds={RX: Thresholds(high_alarm=-20.0)}), CAT).window(RX)
-    assert rx.high_edge == -20.0 and math.isnan(rx.low_edge)
-    assert "sensitivity -14.4 (pmd-table) dropped" in rx.note
+    assert (rx.low_edge, rx.high_edge) == (-14.4, 0.5)
+    assert math.isnan(rx.high_alarm)
+    assert "high alarm -20 (module) dropped" in rx.note
+    # Site edges crossing the standard's: the site wins.
+    o = WindowOverride(quantity=RX, port="eth1/7", rx_overload=-16.0)
+    rx = resolve_windows(optic(), CAT, [o]).window(RX)
+    assert rx.high_edge == -16.0 and math.isnan(rx.low_edge)
+    assert "sensitivity -14.4 (standard) dropped" in rx.note
 
 
-def test_site_override_beats_module_per_edge():
+def test_site_override_beats_module_and_standard_per_edge():
     t = Thresholds(high_alarm=2.5, low_alarm=-18.0, high_warning=0.5, low_warning=-16.0)
     o = WindowOverride(quantity=RX, part_number="hgl-10l-31", rx_sensitivity=-15.0)
     rx = resolve_windows(optic(thresholds={RX: t}), CAT, [o]).window(RX, 1)
-    assert (rx.low_edge, rx.high_edge) == (-15.0, 2.5)
-    assert rx.sources[:2] == (WindowSource.SITE, WindowSource.MODULE)
+    assert (rx.low_edge, rx.high_edge) == (-15.0, 0.5)
+    assert (rx.low_alarm, rx.high_alarm) == (-15.0, 2.5)
+    assert rx.sources[:4] == (WindowSource.SITE, WindowSource.PMD_TABLE, WindowSource.SITE,
+                              WindowSource.MODULE)
     assert rx.source is WindowSource.SITE
 
 
@@ -161,26 +184,43 @@ def test_lane_specific_override():
 
 
 def test_oma_never_compared_with_average_power_pmd_edges():
+    # 10GBASE-LR: OMA sensitivity -12.6 dBm (IEEE 802.3 cl.52, pmd_catalogue.csv, from
+    # memory) is the standard's edge for an OMA-reporting module; no average edge at all.
     rx = resolve_windows(optic(rx_power_type="oma"), CAT).window(RX)
-    assert rx.source is WindowSource.NONE
-    assert OMA_NOTE in rx.note
+    assert rx.low_edge == -12.6 and math.isnan(rx.high_edge)
+    assert rx.edge_source("low_edge") is WindowSource.PMD_TABLE
+    assert "Rx judged in OMA" in rx.note
     # Tx power is average in every diagnostic map: the PMD Tx edges still apply.
     assert resolve_windows(optic(rx_power_type="OMA"), CAT).window(TX).low_edge == -8.2
+    # A PMD whose table row states no OMA sensitivity: no standard Rx edge, and why.
+    lx = resolve_windows(optic(pmd="1000BASE-LX", rx_power_type="oma"), CAT).window(RX)
+    assert lx.source is WindowSource.NONE and OMA_NOTE in lx.note
 
 
 def test_oma_uses_module_thresholds_in_the_same_terms():
     t = Thresholds(high_alarm=1.0, low_alarm=-13.0)
     rx = resolve_windows(optic(rx_power_type="oma", thresholds={RX: t}), CAT).window(RX)
-    assert (rx.low_edge, rx.high_edge) == (-13.0, 1.0)
-    assert rx.source is WindowSource.MODULE
+    assert (rx.low_edge, rx.high_edge) == (-12.6, 1.0)
+    assert (rx.low_alarm, rx.high_alarm) == (-13.0, 1.0)
+    assert rx.sources[:2] == (WindowSource.PMD_TABLE, WindowSource.MODULE)
     assert OMA_NOTE not in rx.note
 
 
 def test_oma_with_one_declared_edge_says_why_the_other_is_missing():
     t = Thresholds(high_alarm=1.0)
-    rx = resolve_windows(optic(rx_power_type="oma", thresholds={RX: t}), CAT).window(RX)
+    rx = resolve_windows(optic(pmd="1000BASE-LX", rx_power_type="oma", thresholds={RX: t}),
+                         CAT).window(RX)
     assert math.isnan(rx.low_edge) and rx.high_edge == 1.0
     assert OMA_NOTE in rx.note
+
+
+def test_average_rows_carry_the_derived_oma_equivalent_beside_them():
+    # P_avg = OMA (r+1) / (2 (r-1)) at the minimum extinction ratio r (IEEE 802.3 52.9
+    # definitions, from memory): -12.6 dBm OMA at 3.5 dB is about -11.4 dBm average,
+    # 3 dB above the -14.4 dBm average edge that stays the judged one.
+    rx = resolve_windows(optic(), CAT).window(RX)
+    assert rx.low_edge == -14.4
+    assert rx.oma_equivalent_dbm == pytest.approx(-11.44, abs=0.01)
 
 
 def test_oma_with_site_override():
@@ -252,3 +292,13 @@ def test_override_index_matching_order():
         WindowOverride(quantity=RX, part_number="HGL-10L-31", rx_sensitivity=-3.0),
     ])
     assert index.matching(optic()) == (1, 2, 0)  # least specific first
+
+
+def test_the_plants_fibre_picks_the_pmd_row():
+    # 1000BASE-LX launches at least -11.0 dBm on single-mode and -11.5 dBm on multimode
+    # fibre (IEEE 802.3 Table 38-7 via standards.md, verified).
+    lx = optic(pmd="1000BASE-LX")
+    assert resolve_windows(lx, CAT).window(TX).low_edge == -11.0
+    assert resolve_windows(lx, CAT, fibre="OM3").window(TX).low_edge == -11.5
+    resolver = WindowResolver(CAT, fibre_of={(lx.device, lx.port): "OM2"})
+    assert resolver(lx).window(TX).low_edge == -11.5

@@ -12,10 +12,12 @@ import asyncio
 import contextlib
 import json
 import logging
+import math
 import os
 import sys
 import tempfile
 import time
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -391,14 +393,84 @@ def cmd_report(args: argparse.Namespace) -> int:
     history = monitor.open_history()
     assert history is not None
     try:
-        report = build_report(history, monitor.plant_with_history(), monitor.targets,
-                              time.time(), days=args.days)
+        with _progress_bar("reading history") as progress:
+            report = build_report(history, monitor.plant_with_history(), monitor.targets,
+                                  time.time(), days=args.days, progress=progress)
+        if args.output:
+            from lightwarden.exporters.pages.report_html import write_report_dir
+
+            try:
+                written = write_report_dir(report, history, Path(args.output),
+                                           (monitor.targets.overload_db,
+                                            monitor.targets.sensitivity_db))
+            except OSError as exc:
+                raise ConfigError(f"report -o {args.output}: {exc.strerror or exc}") from None
+            print(f"wrote {', '.join(str(p) for p in written)}", file=sys.stderr)
     finally:
         monitor.close()
-    if args.json:
-        print(json.dumps(report_json(report), indent=2))
-    else:
-        print(render_report(report))
+    text = json.dumps(report_json(report), indent=2) if args.json else render_report(report)
+    try:
+        sys.stdout.write(text + "\n")
+        sys.stdout.flush()
+    except BrokenPipeError:
+        # the reader (head, less) has gone: stop quietly, and keep the interpreter's own
+        # flush at exit from raising again on the closed pipe
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    return EXIT_OK
+
+
+@contextlib.contextmanager
+def _progress_bar(what: str) -> Iterator[Callable[[int, int], None] | None]:
+    """A transient progress bar on a terminal's stderr (rich); nothing when not a terminal."""
+    if not sys.stderr.isatty():
+        yield None
+        return
+    from rich.console import Console
+    from rich.progress import Progress
+
+    with Progress(console=Console(stderr=True), transient=True) as bar:
+        task = bar.add_task(what, total=None)
+
+        def step(done: int, total: int) -> None:
+            bar.update(task, completed=done, total=total)
+
+        yield step
+
+
+def _days(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number of days") from None
+    if not (math.isfinite(v) and v > 0):
+        raise argparse.ArgumentTypeError(f"{text!r}: days must be a positive number")
+    return v
+
+
+def cmd_history_check(args: argparse.Namespace) -> int:
+    """The history file's full integrity check (PRAGMA integrity_check) and row counts."""
+    from lightwarden.exporters.app.wiring import history_path
+    from lightwarden.exporters.store.history import History, HistoryError
+
+    cfg, base = _load(args.config)
+    path = history_path(cfg, _state_dir(args, cfg, base))
+    if not path.exists():
+        raise ConfigError(f"history.path {path}: no such file")
+    try:
+        history = History(path)
+    except HistoryError as exc:
+        print(f"lightwarden: {exc}", file=sys.stderr)
+        return EXIT_FINDINGS
+    try:
+        problems = history.check()
+        counts = history.counts()
+    finally:
+        history.close()
+    if problems:
+        print(f"{path}: integrity_check found:", *problems[:20], sep="\n  ", file=sys.stderr)
+        return EXIT_FINDINGS
+    print(f"{path}: ok; " + ", ".join(f"{k} {v}" for k, v in counts.items()))
     return EXIT_OK
 
 
@@ -565,10 +637,19 @@ def build_parser() -> argparse.ArgumentParser:
 
     rep = sub.add_parser("report", help="planners' report: ageing links, forecasts, span loss")
     rep.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help=_CONFIG_HELP)
-    rep.add_argument("--days", type=float, default=90.0, help="history to fit (default 90)")
+    rep.add_argument("--days", type=_days, default=90.0, help="history to fit (default 90)")
     rep.add_argument("--json", action="store_true", help="print JSON instead of text")
+    rep.add_argument("-o", "--output", metavar="DIR", default=None,
+                     help="also write report.html (with charts) and report.csv here")
     _state_option(rep)
     rep.set_defaults(func=cmd_report)
+
+    hist = sub.add_parser("history", help="the reading history file")
+    hist_sub = hist.add_subparsers(dest="action", required=True)
+    chk = hist_sub.add_parser("check", help="full integrity check of the history file")
+    chk.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help=_CONFIG_HELP)
+    _state_option(chk)
+    chk.set_defaults(func=cmd_history_check)
 
     dec = sub.add_parser("decode", help="decode a module memory map (binary or hex dump)")
     dec.add_argument("file", metavar="FILE",

@@ -227,7 +227,11 @@ class Listen(_Model):
 
 class History(_Model):
     path: str = "lightwarden-history.sqlite"  # relative: in the state directory
-    keep_days: float = Field(default=400.0, gt=0)
+    #: the tiers (exporters/store/README.md): raw samples, then hourly and daily
+    #: min/avg/max; keep_days is the hourly tier's, long enough for the 90-day trends
+    raw_days: float = Field(default=14.0, ge=1)
+    keep_days: float = Field(default=120.0, gt=0)
+    daily_days: float = Field(default=3650.0, gt=0)
     #: keep at most one sample per device this often (trends need hours, not seconds)
     sample_every_s: float = Field(default=900.0, gt=0)
     enabled: bool = True

@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import math
+import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, replace
@@ -21,9 +23,10 @@ from lightwarden.collector.entry import SharedParts
 from lightwarden.collector.readings import OpticIdentity, PollOutcome, Quantity, ReadingStatus
 from lightwarden.collector.source import PollSource
 from lightwarden.exporters.pages.view import DeviceView, LinkLoss
+from lightwarden.exporters.prometheus.drift_metrics import DriftGauges
 from lightwarden.exporters.prometheus.exposition import Exposition
 from lightwarden.exporters.prometheus.self_metrics import SelfMetrics
-from lightwarden.exporters.store.gather import history_advice_context
+from lightwarden.exporters.store.gather import history_advice_context, lane_outlooks
 from lightwarden.exporters.store.history import History, HistoryError
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets, assess
@@ -50,6 +53,12 @@ from lightwarden.rules.windows import WindowResolver
 log = logging.getLogger("lightwarden.monitor")
 
 _AGEING = (Quantity.RX_POWER, Quantity.TX_POWER, Quantity.BIAS)
+#: how often (poll time) the drift gauges are recomputed from history, over how many days
+DRIFT_EVERY_S = 3600.0
+DRIFT_DAYS = 90.0
+#: devices first recorded since the last refresh bring the next one forward to this long
+#: after it (the first round of polls at start-up, a device added by a reload)
+DRIFT_SETTLE_S = 30.0
 #: Conditions of a far transmitter that explain a dark receiver.
 _TX_CAUSES = (Condition.LASER_OFF, Condition.TX_FAULT, Condition.DARK)
 AlertSink = Callable[[list[AlertEvent]], None]
@@ -110,6 +119,14 @@ class Monitor:
         self._active: set[str] | None = None
         self._alerts_enabled = alerts
         self.exposition.set_alert_source(self.lifecycle.open_alerts)
+        self.drift = DriftGauges()
+        self.exposition.set_extra_source(self.drift.text)
+        self._next_drift = -math.inf
+        self._last_drift = -math.inf
+        self._drift_devices: set[str] = set()
+        self._drift_stale = False
+        self._contexts: dict[tuple[str, str, int, Quantity], tuple[float, AdviceContext]] = {}
+        self._drift_busy = threading.Lock()
         # Consistency: each port's latest identity (kept while its device is silent, so a
         # missed poll resolves nothing), the findings now present, and their alerts.
         self.link_alerts = LinkAlerts()
@@ -195,9 +212,10 @@ class Monitor:
         return self.history
 
     def close(self) -> None:
-        if self.history is not None:
-            self.history.close()
-            self.history = None
+        with self._drift_busy:  # let a drift refresh in flight finish first
+            if self.history is not None:
+                self.history.close()
+                self.history = None
         for s in self.sources:
             s.close()
         self.parts.shared.close()
@@ -279,6 +297,33 @@ class Monitor:
             self.history.record(b, windows)
         except HistoryError as exc:
             log.error("%s", exc)  # monitoring goes on; the history has a gap
+        now = b.taken_at
+        if b.device not in self._drift_devices:  # a device the gauges have not seen yet
+            self._drift_devices.add(b.device)
+            self._drift_stale = True
+        due = now >= self._next_drift or (
+            self._drift_stale and now - self._last_drift >= DRIFT_SETTLE_S)
+        if due and not self._drift_busy.locked():
+            # off the poll path: at 10^5 lanes a refresh reads and fits every lane
+            self._next_drift = now + DRIFT_EVERY_S
+            self._last_drift = now
+            self._drift_stale = False
+            threading.Thread(target=self.refresh_drift, args=(now,), name="drift",
+                             daemon=True).start()
+
+    def refresh_drift(self, now: float) -> None:
+        """Recompute the drift and run-out gauges from history (see prometheus/drift_metrics)."""
+        with self._drift_busy:
+            history = self.history
+            if history is None:
+                return
+            try:
+                lanes = lane_outlooks(history, self.plant_with_history(), self.targets, now,
+                                      days=DRIFT_DAYS, with_lasers=False)
+            except HistoryError as exc:
+                log.error("drift gauges not refreshed: %s", exc)
+                return
+            self.drift.update(lanes, now)
 
     def _far_ends(self, a: Assessment) -> dict[tuple[str, int, Quantity], AdviceContext]:
         """For each dark receiver: the far end from the plant and what its Tx last read.
@@ -432,8 +477,15 @@ class Monitor:
             if q not in _AGEING:
                 continue
             port, lane = b.optics[int(b.optic[i])].port, int(b.lane[i])
-            out[(port, lane, q)] = history_advice_context(self.history, self.plant, b.device,
-                                                          port, lane, q, now)
+            key = (b.device, port, lane, q)
+            held = self._contexts.get(key)
+            # history gains at most one sample per sample interval: until then the facts
+            # are the same, and an alerting row is asked for them on every poll
+            if held is None or now - held[0] >= self.history.every_s:
+                held = (now, history_advice_context(self.history, self.plant, b.device,
+                                                    port, lane, q, now))
+                self._contexts[key] = held
+            out[(port, lane, q)] = held[1]
         return out
 
     async def poll_all(self) -> list[DeviceView]:

@@ -175,7 +175,8 @@ def open_history(cfg: SiteConfig, state_dir: Path) -> History | None:
     if path.is_relative_to(state_dir):
         ensure_state_dir(state_dir)
     try:
-        return History(path, every_s=h.sample_every_s, keep_days=h.keep_days)
+        return History(path, every_s=h.sample_every_s, keep_days=h.keep_days,
+                       raw_days=h.raw_days, daily_days=h.daily_days)
     except HistoryError as exc:
         raise ConfigError(f"history.path: {exc}") from None
 

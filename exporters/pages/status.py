@@ -13,6 +13,7 @@ from html import escape
 from lightwarden.exporters.pages.budget import mount as mount_budget
 from lightwarden.exporters.pages.http import HttpRequest, HttpServer, Response
 from lightwarden.exporters.pages.report import build_report, render_report, report_json
+from lightwarden.exporters.pages.report_html import render_html
 from lightwarden.exporters.pages.rows import OpticRow, optic_rows, worst_first
 from lightwarden.exporters.pages.view import MonitorView
 from lightwarden.rules.advice import LASER_CAUTION
@@ -41,6 +42,7 @@ class StatusPage:
         server.add_route("/", self.page)
         server.add_route("/api/optics", self.api)
         server.add_route("/report", self.report_text)
+        server.add_route("/report.html", self.report_html)
         server.add_route("/api/report", self.report_api)
         mount_budget(server)
 
@@ -100,6 +102,14 @@ class StatusPage:
         if report is None:
             return 404, "text/plain; charset=utf-8", b"no history kept by this monitor\n"
         return 200, "text/plain; charset=utf-8", render_report(report, limit=500).encode()
+
+    def report_html(self, _req: HttpRequest) -> Response:
+        m = self.monitor
+        report = self._report()
+        if report is None or m.history is None:
+            return 404, "text/plain; charset=utf-8", b"no history kept by this monitor\n"
+        page = render_html(report, m.history, (m.targets.overload_db, m.targets.sensitivity_db))
+        return 200, "text/html; charset=utf-8", page.encode()
 
     def report_api(self, _req: HttpRequest) -> Response:
         report = self._report()

@@ -50,8 +50,8 @@ class RuleParams:
     #: open_hold_s when the site config sets one, so both open at the same time.
     condition_for: str = "0s"
     drift_db_per_day: float = 1.0
-    drift_window: str = "6h"
     drift_for: str = "1h"
+    runout_days: float = 30.0
     device_down_for: str = "5m"
     device_data_age_s: float = 900.0
     monitor_job: str = "lightwarden"
@@ -63,7 +63,7 @@ class RuleParams:
             v = getattr(self, f.name)
             if f.name.endswith(("_for", "_window")) and not _DURATION.match(v):
                 raise ValueError(f"{f.name}: {v!r} is not a Prometheus duration (e.g. 5m, 1h)")
-        for name in ("drift_db_per_day",):
+        for name in ("drift_db_per_day", "runout_days"):
             if not getattr(self, name) > 0:
                 raise ValueError(f"{name} must be > 0 (got {getattr(self, name)})")
         if self.device_data_age_s <= 0:
@@ -170,17 +170,39 @@ def build_rules(p: RuleParams) -> dict[str, Any]:
     optics = [_condition_rule(c, p) for c in ALERTNAMES]
     optics += [
         {
+            # The monitor's robust slope from history, exported only where its interval
+            # excludes zero: deriv() over a few scrapes fires on glitches, steps and
+            # restarts (a slope from too few samples).
             "alert": "LightwardenRxFastDrift",
-            "expr": f"deriv(lightwarden_rx_power_dbm[{p.drift_window}]) * 86400"
-            f" < -{_num(p.drift_db_per_day)}\n  {not_dark}\n",
+            "expr": f"lightwarden_rx_drift_db_per_day < -{_num(p.drift_db_per_day)}\n"
+            f"  {not_dark}\n",
             "for": p.drift_for,
             "labels": {"severity": "warning"},
             "annotations": {
                 "summary": f"Rx on {OPTIC} is falling " + '{{ $value | printf "%.2f" }} dB/day',
-                "description": f"Least-squares slope over {p.drift_window}, faster than "
-                f"{_num(p.drift_db_per_day)} dB/day for {p.drift_for}.",
+                "description": "Robust slope of received power since its last step, from "
+                f"the monitor's history, faster than {_num(p.drift_db_per_day)} dB/day "
+                f"for {p.drift_for}.",
                 "advice": "Find what changed before the margin runs out: a dirty or loose "
                 "connector, a new bend, or a weakening far-end laser.",
+                "caution": LASER_CAUTION,
+            },
+        },
+        {
+            "alert": "LightwardenRxMarginRunsOut",
+            "expr": f"lightwarden_rx_time_to_target_seconds < {_num(p.runout_days * 86400)}"
+            f"\n  {not_dark}\n",
+            "for": p.drift_for,
+            "labels": {"severity": "warning"},
+            "annotations": {
+                "summary": f"Rx on {OPTIC} leaves its margin target in "
+                "{{ $value | humanizeDuration }}",
+                "description": "Forecast from the monitor's history (robust slope since "
+                f"the last step) says the margin target is lost within {_num(p.runout_days)} "
+                "days.",
+                "advice": "Plan the work before the date: inspect and clean the connectors, "
+                "check the span for new loss, or schedule replacement of the transmitting "
+                "optic if its laser is wearing.",
                 "caution": LASER_CAUTION,
             },
         },

@@ -548,6 +548,7 @@ class Exposition:
         self._cached_gz: tuple[int, bytes] | None = None
         self._targets = b""
         self._self: SelfMetrics | None = None
+        self._extra: Callable[[], bytes] | None = None
         self.set_margin_targets(margin_target_overload_db, margin_target_sensitivity_db)
 
     # -- input -------------------------------------------------------------------------
@@ -563,6 +564,10 @@ class Exposition:
 
     def set_alert_source(self, alerts: AlertSource | None) -> None:
         self._alerts = alerts
+
+    def set_extra_source(self, source: Callable[[], bytes] | None) -> None:
+        """Text rendered elsewhere (the drift gauges) appended to every scrape."""
+        self._extra = source
 
     def set_link_source(self, links: Callable[[], Iterable[Finding]] | None) -> None:
         """Consistency findings, rendered at scrape time like the open alerts."""
@@ -721,6 +726,9 @@ class Exposition:
         links = self.links_text()
         if links:
             parts.append(_gz(links, self._gzip_level) if compressed else links)
+        extra = self._extra() if self._extra is not None else b""
+        if extra:
+            parts.append(_gz(extra, self._gzip_level) if compressed else extra)
         return parts
 
     def links_text(self) -> bytes:

@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
+import urllib.parse
 import urllib.request
 
 import pytest
@@ -63,7 +64,8 @@ def rules_file(tmp_path):
     they read is already held by the rule layer)."""
     out = tmp_path / "lightwarden-alerts.yml"
     res = subprocess.run(
-        [sys.executable, "-m", "lightwarden.exporters.app.cli", "rules", "-o", str(out)],
+        [sys.executable, "-m", "lightwarden.exporters.app.cli", "rules", "-o", str(out),
+         "--drift-for", "1s"],
         capture_output=True, text=True, timeout=60, check=False,
     )
     assert res.returncode == 0, res.stderr
@@ -185,6 +187,21 @@ def test_prometheus_rules_and_pushed_alerts_are_one_definition(demo, prometheus)
     assert links == LAB_FINDINGS
     assert all(set(dict(a)) == {"alertname", *LINK_LABELS} for a in rules
                if dict(a)["alertname"] == "OpticLinkMismatch")
+
+    # Drift: the monitor's robust slope from the demo's backfilled history reaches
+    # Prometheus for the wearing laser's receiver only (lab.yaml laser_wear: -0.06 dB/day),
+    # and the drift rule, pending after one second, has fired on no lane at all.
+    def drift_series():
+        q = urllib.parse.quote("lightwarden_rx_drift_db_per_day")
+        got = _get(f"{base}/api/v1/query?query={q}")["data"]["result"]
+        return got or None
+
+    series = wait_for(drift_series, 60, "the drift gauge in Prometheus", step=1.0)
+    assert {(r["metric"]["device"], r["metric"]["port"]) for r in series} == {
+        ("qm-core-a", "sfp5")}
+    assert -0.07 < float(series[0]["value"][1]) < -0.05
+    alerts = _get(base + "/api/v1/alerts")["data"]["alerts"]
+    assert not [a for a in alerts if a["labels"]["alertname"] == "LightwardenRxFastDrift"]
 
     # Ending the demo the way a service manager does is a clean exit.
     assert demo.terminate() == 0, demo.log_tail()

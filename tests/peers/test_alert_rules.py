@@ -47,9 +47,9 @@ def test_promtool_check_rules():
     promtool = require_binary("promtool")
     res = run([promtool, "check", "rules", str(RULES)])
     assert res.returncode == 0, res.stdout + res.stderr
-    # one rule per alerting condition (rules/lifecycle.py ALERTNAMES), drift, and the
-    # three device/monitor rules, and the link-finding rule
-    assert "SUCCESS: 19 rules found" in res.stdout
+    # one rule per alerting condition (rules/lifecycle.py ALERTNAMES), drift and run-out,
+    # the three device/monitor rules, and the link-finding rule
+    assert "SUCCESS: 20 rules found" in res.stdout
 
 
 @pytest.mark.external
@@ -84,9 +84,9 @@ def test_cli_writes_valid_rules_with_custom_params(tmp_path):
 
 
 def test_cli_rejects_bad_duration_clearly(tmp_path, capsys):
-    assert main(["-o", str(tmp_path / "x.yml"), "--drift-window", "6 hours"]) == 2
+    assert main(["-o", str(tmp_path / "x.yml"), "--drift-for", "6 hours"]) == 2
     err = capsys.readouterr().err
-    assert "drift_window" in err and "'6 hours'" in err and "Traceback" not in err
+    assert "drift_for" in err and "'6 hours'" in err and "Traceback" not in err
     assert not (tmp_path / "x.yml").exists()
 
 

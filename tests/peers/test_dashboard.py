@@ -15,11 +15,12 @@ from pathlib import Path
 import yaml
 from support.procs import require_binary
 
+from lightwarden.exporters.prometheus.drift_metrics import FAMILIES as DRIFT_FAMILIES
 from lightwarden.exporters.prometheus.exposition import ALERT_OPEN, DEVICE_FAMILIES, TARGET_OVERLOAD
 
 DASHBOARD = Path(__file__).resolve().parents[2] / "deploy" / "grafana" / \
     "lightwarden-dashboard.json"
-EXPORTED = {f.name for f in (*DEVICE_FAMILIES, ALERT_OPEN, TARGET_OVERLOAD)}
+EXPORTED = {f.name for f in (*DEVICE_FAMILIES, ALERT_OPEN, TARGET_OVERLOAD, *DRIFT_FAMILIES)}
 
 
 def _queries() -> list[str]:

@@ -1,89 +1,20 @@
-"""Drift, forecast and laser wear against numpy's own least squares and synthetic lines."""
+"""Laser wear against the rule of thumb, its first-seen baseline and module temperature."""
 
 from __future__ import annotations
-
-import math
 
 import numpy as np
 import pytest
 
 from lightwarden.rules.trend import (
     SECONDS_PER_DAY,
+    Baseline,
     WearLimits,
-    fit_trend,
-    forecast_crossing,
     laser_wear,
+    temperature_coefficient,
 )
 
 T0 = 1_800_000_000.0
 HOURLY_90_DAYS = T0 + np.arange(0, 90 * SECONDS_PER_DAY, 3600.0)
-
-
-def test_slope_of_an_exact_line_is_recovered():
-    values = -3.0 - 0.02 * (HOURLY_90_DAYS - T0) / SECONDS_PER_DAY  # -0.02 dB per day
-    tr = fit_trend(HOURLY_90_DAYS, values)
-    assert tr.rate_per_day == pytest.approx(-0.02, rel=1e-9)
-    assert tr.r_squared == pytest.approx(1.0)
-    assert tr.residual_rms == pytest.approx(0.0, abs=1e-9)
-    assert tr.value_at(T0) == pytest.approx(-3.0)
-
-
-def test_noisy_fit_matches_numpy_polyfit():
-    # source: numpy.polyfit (reference least-squares implementation)
-    rng = np.random.default_rng(7)
-    t = HOURLY_90_DAYS
-    days = (t - T0) / SECONDS_PER_DAY
-    values = -6.0 - 0.015 * days + rng.normal(0.0, 0.2, t.size)
-    tr = fit_trend(t, values)
-    slope, intercept = np.polyfit(days, values, 1)
-    assert tr.rate_per_day == pytest.approx(slope, rel=1e-9)
-    assert tr.value_at(T0) == pytest.approx(intercept, rel=1e-9)
-    r = np.corrcoef(days, values)[0, 1]  # R^2 of a straight-line fit is r squared
-    assert tr.r_squared == pytest.approx(r * r, rel=1e-9)
-    assert tr.residual_rms == pytest.approx(0.2, rel=0.1)
-
-
-def test_nan_readings_are_dropped_and_too_little_history_gives_none():
-    t = T0 + np.arange(6) * 3600.0
-    v = np.array([1.0, math.nan, 3.0, math.nan, 5.0, 6.0])
-    tr = fit_trend(t, v)
-    assert tr.points == 4
-    assert tr.rate_per_day == pytest.approx(24.0)  # 1 per hour through the kept points
-    assert fit_trend(t[:2], v[:2]) is None
-    assert fit_trend(np.full(4, T0), np.arange(4.0)) is None
-    with pytest.raises(ValueError, match="differ in length"):
-        fit_trend(t, v[:3])
-
-
-def test_forecast_date_when_margin_runs_out():
-    # Margin to sensitivity 4.0 dB on day 0, shrinking 0.02 dB/day: 0 dB on day 200.
-    margin = 4.0 - 0.02 * (HOURLY_90_DAYS - T0) / SECONDS_PER_DAY
-    now = HOURLY_90_DAYS[-1]
-    when = forecast_crossing(HOURLY_90_DAYS, margin, 0.0, now)
-    assert when == pytest.approx(T0 + 200 * SECONDS_PER_DAY, abs=1.0)
-    # Rising towards an upper edge works the same way.
-    rising = -3.0 + 0.01 * (HOURLY_90_DAYS - T0) / SECONDS_PER_DAY
-    up = forecast_crossing(HOURLY_90_DAYS, rising, -1.0, now)
-    assert up == pytest.approx(T0 + 200 * SECONDS_PER_DAY, abs=1.0)
-
-
-def test_no_forecast_when_moving_away_flat_noisy_or_beyond_horizon():
-    now = HOURLY_90_DAYS[-1]
-    days = (HOURLY_90_DAYS - T0) / SECONDS_PER_DAY
-    assert forecast_crossing(HOURLY_90_DAYS, 4.0 + 0.02 * days, 0.0, now) is None
-    assert forecast_crossing(HOURLY_90_DAYS, np.full(days.size, 4.0), 0.0, now) is None
-    noise = 4.0 + np.random.default_rng(3).normal(0.0, 0.5, days.size) - 1e-4 * days
-    assert forecast_crossing(HOURLY_90_DAYS, noise, 0.0, now) is None
-    falling = 4.0 - 0.02 * days
-    assert (
-        forecast_crossing(HOURLY_90_DAYS, falling, 0.0, now, horizon_s=30 * SECONDS_PER_DAY) is None
-    )
-    assert forecast_crossing(HOURLY_90_DAYS, falling, math.nan, now) is None
-
-
-def test_forecast_on_the_edge_is_now():
-    t = T0 + np.arange(3) * 3600.0
-    assert forecast_crossing(t, np.array([2.0, 1.0, 0.0]), 0.0, t[-1]) == pytest.approx(t[-1])
 
 
 DAILY_YEAR = T0 + np.arange(365) * SECONDS_PER_DAY
@@ -120,3 +51,61 @@ def test_laser_wear_needs_history_and_limits_are_adjustable():
     assert not short.worn and short.tx_drop_db is None
     tx = -2.0 - 1.3 * np.arange(365) / 364
     assert not laser_wear(DAILY_YEAR, tx, limits=WearLimits(tx_drop_db=2.0)).worn
+
+
+def _season(seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """Module temperature over a warming quarter: +15 °C, with a ±2 °C daily swing."""
+    rng = np.random.default_rng(seed)
+    days = (HOURLY_90_DAYS - T0) / SECONDS_PER_DAY
+    temp = 30.0 + 15.0 * np.sin(np.pi / 2 * days / 90) + 2.0 * np.sin(2 * np.pi * days)
+    return days, temp + rng.normal(0.0, 0.3, days.size)
+
+
+def test_a_warm_season_at_constant_output_is_not_wear():
+    # Under automatic power control the bias rises with temperature to hold the output:
+    # threshold current grows about exp(T/T0), T0 ~ 60 K for a DFB (from memory), i.e.
+    # ~1.7 %/°C, so +13 °C is ~25 % more bias: past the 20 % notice if taken as wear.
+    days, temp = _season(21)
+    rng = np.random.default_rng(22)
+    bias = 30.0 * np.exp((temp - 30.0) / 60.0) * (1 + rng.normal(0, 0.005, days.size))
+    tx = -2.0 + rng.normal(0.0, 0.03, days.size)
+    naive = laser_wear(HOURLY_90_DAYS, tx, bias)
+    assert naive.worn and "bias" in naive.reason  # what ignoring temperature would say
+    v = laser_wear(HOURLY_90_DAYS, tx, bias, temperature_c=temp)
+    assert not v.worn and v.bias_rise == pytest.approx(0.0, abs=0.03)
+    assert "allowing for the module" in v.temperature_note
+    # the coefficient the history shows is the one the series was made with
+    assert temperature_coefficient(HOURLY_90_DAYS, np.log(bias), temp) == pytest.approx(
+        1 / 60, rel=0.05)
+
+
+def test_wear_in_a_warm_season_is_still_wear():
+    days, temp = _season(23)
+    rng = np.random.default_rng(24)
+    bias = 30.0 * np.exp((temp - 30.0) / 60.0) * (1 + 0.3 * days / 90)  # 30 % from ageing
+    tx = -2.0 + rng.normal(0.0, 0.03, days.size)
+    v = laser_wear(HOURLY_90_DAYS, tx, bias, temperature_c=temp)
+    assert v.worn and v.bias_rise == pytest.approx(0.3, abs=0.04)
+
+
+def test_temperature_that_only_ramps_with_time_is_not_guessed_at():
+    days = (HOURLY_90_DAYS - T0) / SECONDS_PER_DAY
+    temp = 30.0 + 15.0 * days / 90  # no short-term swing: temperature and time coincide
+    bias = 30.0 * np.exp((temp - 30.0) / 60.0)
+    v = laser_wear(HOURLY_90_DAYS, np.full(days.size, -2.0), bias, temperature_c=temp)
+    assert not v.worn and v.bias_rise is None
+    assert "cannot separate" in v.temperature_note
+
+
+def test_wear_is_judged_from_the_serials_first_seen_baseline_not_the_query_window():
+    # 0.9 dB a month (0.03 dB/day) since first seen at T0, 60 days before this 30-day
+    # window: within the window it fell 0.9 dB (under the 1 dB notice), since T0 2.7 dB.
+    window = HOURLY_90_DAYS[-30 * 24:]
+    days = (window - T0) / SECONDS_PER_DAY
+    rng = np.random.default_rng(25)
+    tx = -2.0 - 0.03 * days + rng.normal(0.0, 0.03, days.size)
+    assert not laser_wear(window, tx).worn
+    first = Baseline("QM-SN-0001", T0, tx_dbm=-2.0, bias_ma=30.0, temperature_c=None)
+    v = laser_wear(window, tx, baseline=first)
+    assert v.worn and v.since == T0
+    assert v.tx_drop_db == pytest.approx(0.03 * 90, abs=0.1)

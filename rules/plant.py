@@ -38,7 +38,9 @@ class SpanRecord(Protocol):
     @property
     def splices(self) -> int: ...
     @property
-    def pad_db(self) -> float: ...
+    def pad_a_db(self) -> float: ...  # fitted at A's receiver
+    @property
+    def pad_b_db(self) -> float: ...
     @property
     def wavelength_nm(self) -> float | None: ...
     @property
@@ -60,7 +62,7 @@ def build_plant(records: Iterable[SpanRecord], catalogue: Catalogue,
         if wavelength is None:
             wavelength = 850.0 if sp.fibre.startswith("OM") else 1310.0
         spans.append(PlantSpan(a_dev, a_port, b_dev, b_port, sp.km, sp.fibre, wavelength,
-                               sp.connectors, sp.splices, sp.pad_db,
+                               sp.connectors, sp.splices, sp.pad_a_db, sp.pad_b_db,
                                sp.mode_conditioning))
         far[(a_dev, a_port)] = (b_dev, b_port)
         far[(b_dev, b_port)] = (a_dev, a_port)

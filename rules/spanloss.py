@@ -55,7 +55,10 @@ class PlantSpan:
     wavelength_nm: float
     connectors: int = 2  # mated pairs in the path, patch panels included
     splices: int = 0
-    pad_db: float = 0.0  # fixed attenuators fitted on purpose
+    #: fixed attenuators fitted on purpose, each at one receiver: at A's (it counts in
+    #: the B -> A direction only) and at B's (A -> B)
+    pad_a_db: float = 0.0
+    pad_b_db: float = 0.0
     #: mode-conditioning patch cords fitted at both ends (1000BASE-LX on multimode fibre)
     mode_conditioning: bool = False
 
@@ -92,15 +95,19 @@ def fibre_db_per_km(
 
 
 def engineered_loss_db(
-    span: PlantSpan, coeffs: PlanningCoefficients = DEFAULT_COEFFICIENTS
+    span: PlantSpan, coeffs: PlanningCoefficients = DEFAULT_COEFFICIENTS,
+    direction: str = "a->b",
 ) -> float:
-    """The loss the span was built to have, from its plant record."""
-    for field_name in ("length_km", "pad_db", "wavelength_nm"):
+    """The loss one direction of the span was built to have, from its plant record: the
+    fibre, connectors and splices, plus the pad at that direction's receiver."""
+    for field_name in ("length_km", "pad_a_db", "pad_b_db", "wavelength_nm"):
         value = getattr(span, field_name)
         if not math.isfinite(value) or value < 0:
             raise ValueError(f"span {span.name}: {field_name} must be a number >= 0, got {value!r}")
     if span.connectors < 0 or span.splices < 0:
         raise ValueError(f"span {span.name}: connectors and splices must be >= 0")
+    if direction not in ("a->b", "b->a"):
+        raise ValueError(f"span {span.name}: direction must be 'a->b' or 'b->a', not {direction!r}")
     try:
         alpha = fibre_db_per_km(span.fibre, span.wavelength_nm, coeffs)
     except ValueError as exc:
@@ -112,7 +119,7 @@ def engineered_loss_db(
         coeffs.connector_db,
         span.splices,
         coeffs.splice_db,
-        span.pad_db,
+        span.pad_b_db if direction == "a->b" else span.pad_a_db,
     )
 
 

@@ -179,11 +179,24 @@ class Span(_Model):
     fibre: Literal["OS1", "OS2", "OM1", "OM2", "OM3", "OM4", "OM5"] = "OS2"
     connectors: int = Field(default=2, ge=0)
     splices: int = Field(default=0, ge=0)
-    pad_db: float = Field(default=0.0, ge=0)
+    #: fixed attenuators fitted at A's receiver (counted in the B -> A direction only) and
+    #: at B's receiver (A -> B)
+    pad_a_db: float = Field(default=0.0, ge=0)
+    pad_b_db: float = Field(default=0.0, ge=0)
     #: the wavelength the loss is judged at; default: the middle of the optics' PMD band
     wavelength_nm: float | None = Field(default=None, gt=0)
     #: mode-conditioning patch cords at both ends (1000BASE-LX over multimode, cl.38)
     mode_conditioning: bool = False
+
+    @model_validator(mode="before")
+    @classmethod
+    def _one_pad_per_receiver(cls, data: Any) -> Any:
+        # A pad sits at one receiver and attenuates one direction: one pad_db for the span
+        # made a pad at B's receiver read as 10 dB "below budget" from B to A.
+        if isinstance(data, dict) and "pad_db" in data:
+            raise ValueError("pad_db: a pad is fitted at one receiver; give pad_a_db (at "
+                             "a's receiver) or pad_b_db (at b's receiver)")
+        return data
 
 
 class Destination(_Model):

@@ -445,10 +445,11 @@ class Monitor:
     def _engineered(self, tx_dev: str, tx_port: str, rx_dev: str, rx_port: str
                     ) -> float | None:
         for sp in self.plant.spans:
-            ends = {(sp.a_device, sp.a_port), (sp.b_device, sp.b_port)}
-            if ends == {(tx_dev, tx_port), (rx_dev, rx_port)}:
+            a, b = (sp.a_device, sp.a_port), (sp.b_device, sp.b_port)
+            if {a, b} == {(tx_dev, tx_port), (rx_dev, rx_port)}:
                 try:
-                    return engineered_loss_db(sp)
+                    return engineered_loss_db(sp, direction="a->b" if a == (tx_dev, tx_port)
+                                              else "b->a")
                 except ValueError:
                     return None
         return None

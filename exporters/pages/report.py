@@ -41,13 +41,22 @@ def build_report(history: History, plant: Plant | None, targets: MarginTargets, 
     lanes = lane_outlooks(history, plant, targets, now, days, horizon_days, progress)
     soonest_first(lanes)
     spans: list[SpanOutlook] = []
+    lanes_of: dict[tuple[str, str], set[int]] = {}
+    for w in history.rx_windows():
+        lanes_of.setdefault((w.device, w.port), set()).add(w.lane)
     for sp in plant.spans if plant is not None else []:
-        budget = engineered_loss_db(sp)
-        for (td, tp), (rd, rp) in (((sp.a_device, sp.a_port), (sp.b_device, sp.b_port)),
-                                   ((sp.b_device, sp.b_port), (sp.a_device, sp.a_port))):
-            tx = history.series(td, tp, 1, Quantity.TX_POWER, since)
-            rx = history.series(rd, rp, 1, Quantity.RX_POWER, since)
-            spans.append(span_outlook(f"{td} {tp} -> {rd} {rp}", budget, tx, rx))
+        for direction, (td, tp), (rd, rp) in (
+                ("a->b", (sp.a_device, sp.a_port), (sp.b_device, sp.b_port)),
+                ("b->a", (sp.b_device, sp.b_port), (sp.a_device, sp.a_port))):
+            # each direction against its own budget (a pad counts at its receiver only),
+            # every lane of a multi-lane optic on its own
+            budget = engineered_loss_db(sp, direction=direction)
+            rx_lanes = sorted(lanes_of.get((rd, rp), set()) - {0}) or [1]
+            for lane in rx_lanes:
+                tx = history.series(td, tp, lane, Quantity.TX_POWER, since)
+                rx = history.series(rd, rp, lane, Quantity.RX_POWER, since)
+                where = f" lane {lane}" if len(rx_lanes) > 1 else ""
+                spans.append(span_outlook(f"{td} {tp} -> {rd} {rp}{where}", budget, tx, rx))
     most_grown_first(spans)
     lasers = [_laser(history, plant, o, since, now) for o in lanes if o.laser_worn]
     lasers.sort(key=lambda x: (x.receiver_target_lost_at is None,

@@ -47,3 +47,19 @@ def test_bad_optional_columns_are_named(extra, message):
     with pytest.raises(ConfigError) as err:
         parse_config(BASE + ROW + extra + "\n", "site.yaml")
     assert message in str(err.value) and str(err.value).startswith("site.yaml:")
+
+
+def test_one_pad_for_both_directions_is_refused_with_the_way_out():
+    from lightwarden.exporters.app.config import ConfigError, parse_config
+
+    text = """
+devices: [{name: qm-a, host: 127.0.0.1, credentials: c},
+          {name: qm-b, host: 127.0.0.2, credentials: c}]
+credentials: {c: {snmp_v2c: {community: {env: X}}}}
+plant:
+  - {a: qm-a sfp1, b: qm-b sfp1, km: 1.0, pad_db: 5}
+"""
+    with pytest.raises(ConfigError, match=r"pad_a_db .*pad_b_db"):
+        parse_config(text, "site.yaml")
+    ok = parse_config(text.replace("pad_db: 5", "pad_b_db: 5"), "site.yaml")
+    assert (ok.plant[0].pad_a_db, ok.plant[0].pad_b_db) == (0.0, 5.0)

@@ -54,10 +54,19 @@ def test_planning_coefficients_by_band():
     assert fibre_db_per_km("OM4", 850.0) == 3.0
     lr = PlantSpan("hgl-a", "sfp1", "hgl-b", "sfp2", 10.0, "OS2", 1310.0, connectors=2, splices=2)
     assert engineered_loss_db(lr) == pytest.approx(4.0 + 1.0 + 0.2)
-    sr = PlantSpan("hgl-a", "sfp3", "hgl-b", "sfp4", 0.3, "OM4", 850.0, connectors=2, pad_db=0.0)
+    sr = PlantSpan("hgl-a", "sfp3", "hgl-b", "sfp4", 0.3, "OM4", 850.0, connectors=2)
     assert engineered_loss_db(sr) == pytest.approx(0.9 + 1.0)
-    padded = PlantSpan("hgl-a", "sfp5", "hgl-c", "sfp1", 40.0, "OS2", 1550.0, 4, 0, pad_db=5.0)
-    assert engineered_loss_db(padded) == pytest.approx(10.0 + 2.0 + 5.0)
+
+
+def test_a_pad_counts_in_its_own_direction_only():
+    # A 5 dB pad at B's receiver (pad_b_db) lowers what B receives, not what A receives: a
+    # pad of N dB lowers Rx by N dB (standards.md "dB arithmetic", common practice).
+    padded = PlantSpan("hgl-a", "sfp5", "hgl-c", "sfp1", 40.0, "OS2", 1550.0, 4, 0,
+                       pad_b_db=5.0)
+    assert engineered_loss_db(padded, direction="a->b") == pytest.approx(10.0 + 2.0 + 5.0)
+    assert engineered_loss_db(padded, direction="b->a") == pytest.approx(10.0 + 2.0)
+    with pytest.raises(ValueError, match="direction"):
+        engineered_loss_db(padded, direction="sideways")
 
 
 def test_bad_plant_records_name_the_span():

@@ -2,7 +2,8 @@
 
 Peers, all on 127.0.0.1: net-snmp snmpd (fixtures/snmpd: a healthy reference agent,
 one v2c and one v3 agent that are stopped and restarted, a wrong community against the
-reference), a UDP socket that never answers, and the lab's SSH command line with one
+reference, a relay in front of it that cuts table walks short), a UDP socket that never
+answers, and the lab's SSH command line with one
 listener per fault (fixtures/lab/ssh_cli.py CliFaults). Timeouts are short so the test
 stays quick. For every fault: the process survives, the reference devices keep their
 schedule, health says what happened (up / partial / down, its kind and since when) in
@@ -25,6 +26,7 @@ from pathlib import Path
 
 import pytest
 import yaml
+from support.cut_walk import CutWalkRelay
 from support.procs import Proc, wait_for
 from support.snmpd import SnmpdAgent, start_snmpd
 
@@ -34,6 +36,8 @@ from lightwarden.fixtures.lab.ssh_cli import LabSshServer
 pytestmark = [pytest.mark.external]
 
 INTERVAL = 1.0
+#: what a cut page is to our decoder: an answer it cannot decode (collector/snmp/wire.py)
+CUT_KIND = "protocol"
 STALE_AFTER = 4.0
 _URL = re.compile(r"metrics at (http://\S+)/metrics")
 OPENER = urllib.request.build_opener(urllib.request.ProxyHandler({}))
@@ -48,6 +52,8 @@ FAULTS = {
     "qm-wrong-community": ("wrong v2c community (dropped silently by the agent)", "down",
                            "timeout"),
     "qm-silent": ("no answer at all (timeout)", "down", "timeout"),
+    # discovered while whole, then every table page arrives cut half-way: see below
+    "qm-cut-walk": ("SNMP walk cut short (table pages arrive cut half-way)", "up", ""),
     "qm-f-auth": ("SSH wrong password", "down", "auth"),
     "qm-f-hostkey": ("SSH host key changed", "down", "hostkey"),
     "qm-f-hang": ("SSH command hangs", "down", "timeout"),
@@ -96,13 +102,15 @@ def peers(tmp_path):
     v3 = start_snmpd(tmp_path / "v3")
     silent = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
     silent.bind(("127.0.0.1", 0))
+    cut = CutWalkRelay(ref.port).start()
     ssh = LabSshServer(lab, LabClock(lab.epoch + 3600, speed=0), listeners=SSH_LISTENERS,
                        known_hosts_path=tmp_path / "known_hosts")
     ssh.start()
     try:
         yield {"ref": ref, "v2c": v2c, "v3": v3, "silent": silent.getsockname()[1],
-               "ssh": ssh, "tmp": tmp_path}
+               "ssh": ssh, "tmp": tmp_path, "cut": cut}
     finally:
+        cut.stop()
         ssh.stop()
         silent.close()
         for a in (ref, v2c, v3):
@@ -123,6 +131,7 @@ def site(p: dict) -> dict:
         snmp("qm-v3-restart", v3.port, "v3"),
         snmp("qm-wrong-community", ref.port, "wrong"),
         snmp("qm-silent", p["silent"], "ref"),
+        snmp("qm-cut-walk", p["cut"].port, "ref"),
     ] + [{"name": n, "host": "127.0.0.1", "port": ssh.port(n), "protocol": "ssh",
           "platform": "qmos", "credentials": "cli"} for n in SSH_LISTENERS]
     return {
@@ -195,6 +204,16 @@ def test_fault_matrix(peers):
                 assert d["reason"] == "", d
         odd = [r for r in get_json(url)["optics"] if r["device"] == "qm-f-odd"]
         assert any("implausible" in "; ".join(r["notes"]) for r in odd), odd
+
+        # -- a walk cut short: the device alone goes down, saying why ------------------
+        p["cut"].cutting = True
+        wait_for(lambda: health_of(url)["qm-cut-walk"]["health"] != "up", 30,
+                 "qm-cut-walk no longer up")
+        d = health_of(url)["qm-cut-walk"]
+        assert p["cut"].cut > 0 and d["health"] == "down", d
+        assert d["error_kind"] == CUT_KIND and d["reason"].startswith("qm-cut-walk:"), d
+        assert "truncated" in d["reason"], d  # the reason says the answer was cut
+        assert health_of(url)["qm-ref-snmp"]["health"] == "up"  # the same agent, whole
 
         # -- agents stopped: down, then their readings leave the metrics ----------------
         p["v2c"].stop()

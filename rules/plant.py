@@ -50,20 +50,23 @@ class SpanRecord(Protocol):
 def build_plant(records: Iterable[SpanRecord], catalogue: Catalogue,
                 pmd_of: dict[PortRef, str] | None = None) -> Plant:
     """Spans from the site's records; a span without a wavelength takes the middle of its
-    optics' PMD band (from ``pmd_of``), else 1310 nm, the commonest single-mode window."""
+    optics' PMD band (from ``pmd_of``), else 1310 nm (850 nm on multimode), marked assumed."""
     spans: list[PlantSpan] = []
     far: dict[PortRef, PortRef] = {}
     for sp in records:
         a_dev, a_port = sp.a.split()
         b_dev, b_port = sp.b.split()
-        wavelength = sp.wavelength_nm
+        wavelength, source = sp.wavelength_nm, "record"
         if wavelength is None:
-            wavelength = _pmd_wavelength(catalogue, (pmd_of or {}).get((a_dev, a_port), ""))
+            wavelength, source = _pmd_wavelength(
+                catalogue, (pmd_of or {}).get((a_dev, a_port), "")), "pmd"
         if wavelength is None:
-            wavelength = 850.0 if sp.fibre.startswith("OM") else 1310.0
+            # Never silently: the span carries that its wavelength was assumed, and the
+            # report says so beside its budget.
+            wavelength, source = (850.0 if sp.fibre.startswith("OM") else 1310.0), "assumed"
         spans.append(PlantSpan(a_dev, a_port, b_dev, b_port, sp.km, sp.fibre, wavelength,
                                sp.connectors, sp.splices, sp.pad_a_db, sp.pad_b_db,
-                               sp.mode_conditioning))
+                               sp.mode_conditioning, source))
         far[(a_dev, a_port)] = (b_dev, b_port)
         far[(b_dev, b_port)] = (a_dev, a_port)
     return Plant(spans, far)

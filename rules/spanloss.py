@@ -61,6 +61,9 @@ class PlantSpan:
     pad_b_db: float = 0.0
     #: mode-conditioning patch cords fitted at both ends (1000BASE-LX on multimode fibre)
     mode_conditioning: bool = False
+    #: where ``wavelength_nm`` came from: "record" (the plant entry), "pmd" (the middle
+    #: of an end's PMD band) or "assumed" (the fibre's commonest window: say so)
+    wavelength_from: str = "record"
 
     @property
     def name(self) -> str:

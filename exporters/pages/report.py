@@ -56,6 +56,9 @@ def build_report(history: History, plant: Plant | None, targets: MarginTargets, 
                 tx = history.series(td, tp, lane, Quantity.TX_POWER, since)
                 rx = history.series(rd, rp, lane, Quantity.RX_POWER, since)
                 where = f" lane {lane}" if len(rx_lanes) > 1 else ""
+                if sp.wavelength_from == "assumed":
+                    where += (f" (budget at an assumed {sp.wavelength_nm:.0f} nm: no PMD "
+                              "known; set the span's wavelength_nm)")
                 spans.append(span_outlook(f"{td} {tp} -> {rd} {rp}{where}", budget, tx, rx))
     most_grown_first(spans)
     lasers = [_laser(history, plant, o, since, now) for o in lanes if o.laser_worn]

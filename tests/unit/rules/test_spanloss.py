@@ -136,3 +136,20 @@ def test_growth_against_the_span_baseline():
     recent = np.array([7.8, 7.6, 7.7, np.nan])
     assert span_loss_growth(base, recent) == pytest.approx(1.5)
     assert span_loss_growth(base, recent[:2]) is None
+
+
+def test_a_span_wavelength_is_never_assumed_silently():
+    from lightwarden.rules.catalogue import default_catalogue
+    from lightwarden.rules.plant import build_plant
+
+    class Rec:
+        a, b, km, fibre, connectors, splices = "x sfp1", "y sfp1", 1.0, "OS2", 2, 0
+        pad_a_db = pad_b_db = 0.0
+        wavelength_nm = None
+        mode_conditioning = False
+
+    cat = default_catalogue()
+    (assumed,) = build_plant([Rec()], cat).spans
+    assert (assumed.wavelength_nm, assumed.wavelength_from) == (1310.0, "assumed")
+    (from_pmd,) = build_plant([Rec()], cat, {("x", "sfp1"): "10GBASE-ER"}).spans
+    assert from_pmd.wavelength_from == "pmd" and from_pmd.wavelength_nm > 1500

@@ -24,7 +24,7 @@ class AlertDestination:
 
     ``secret`` is the webhook HMAC key (already read from the environment by the caller);
     it never appears in repr, logs or errors. ``static_labels`` are added to every alert
-    sent to Alertmanager (e.g. ``{"site": "harrowgate"}``) and must be the same on every
+    sent to Alertmanager (e.g. ``{"site": "quillmoor"}``) and must be the same on every
     monitor instance so a pair of instances dedupes. ``name`` identifies the destination
     in the outbox; it defaults to the kind plus the URL without credentials or query, so
     keep it stable across restarts or queued events are orphaned.

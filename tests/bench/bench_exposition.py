@@ -3,7 +3,7 @@
     python tests/bench/bench_exposition.py [--optics 100000] [--per-device 40] \
         [--naive-optics 20000]
 
-Builds a fictional fleet (Harrowgate Lab style names) where a quarter of the optics have
+Builds a fictional fleet (Quillmoor Lab style names) where a quarter of the optics have
 four lanes, renders every device once (as each poll would), then times what a scrape
 costs: assembling the cached chunks, and gzip. Compares with the naive approach of one
 prometheus_client labelled Gauge per family set sample by sample and rendered with

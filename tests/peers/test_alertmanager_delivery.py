@@ -75,7 +75,7 @@ def make_dispatcher(tmp_path, name: str, base: str, **kw) -> Dispatcher:
         "alertmanager",
         base,
         timeout_s=5.0,
-        static_labels={"site": "harrowgate-lab"},
+        static_labels={"site": "quillmoor-lab"},
         generator_url="http://127.0.0.1:9817/",
     )
     return Dispatcher(
@@ -107,7 +107,7 @@ def test_open_then_resolve_reaches_webhook_receiver(tmp_path, alertmanager, hook
         "port": "sfp7",
         "lane": "0",
         "quantity": "rx_power",
-        "site": "harrowgate-lab",
+        "site": "quillmoor-lab",
     }
     assert "margin 0.9 dB" in alert["annotations"]["description"]
     assert "overload edge 0.5 dBm (from module)" in alert["annotations"]["description"]

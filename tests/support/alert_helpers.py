@@ -29,7 +29,7 @@ def make_event(
     at: float = 1_700_000_000.0,
     **over,
 ) -> AlertEvent:
-    """An event about a fictional Harrowgate Lab optic (``kind`` may be given as its word)."""
+    """An event about a fictional Quillmoor Lab optic (``kind`` may be given as its word)."""
     kind = AlertKind(kind)
     fields = dict(
         kind=kind,

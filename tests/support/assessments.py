@@ -2,7 +2,7 @@
 
 The lifecycle and advice tests judge what a lifecycle does with a given row condition,
 so they build the Assessment directly (every array aligned with the batch) instead of
-running the assessment pipeline. Names are of the fictional Harrowgate Lab.
+running the assessment pipeline. Names are of the fictional Quillmoor Lab.
 """
 
 from __future__ import annotations

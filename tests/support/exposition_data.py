@@ -1,4 +1,4 @@
-"""Hand-built polls and assessments of the fictional Harrowgate Lab, for exposition tests.
+"""Hand-built polls and assessments of the fictional Quillmoor Lab, for exposition tests.
 
 The rule layer is written elsewhere; these assessments are filled in by hand from the
 reference sheet so the exporter is tested on its own.
@@ -28,7 +28,7 @@ LR4_OVERLOAD_DBM = 4.5
 LR4_SENSITIVITY_DBM = -10.6
 
 ODD_PORT = 'sfp2 "core"\\side\nB'
-ODD_ALIAS = 'to "Harrowgate Lab" rack 4 \\ patch\npanel 7'
+ODD_ALIAS = 'to "Quillmoor Lab" rack 4 \\ patch\npanel 7'
 
 
 def lab_batch(device: str = "hg-core-1", taken_at: float = 1_800_000_000.0) -> ReadingBatch:

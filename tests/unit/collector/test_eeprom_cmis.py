@@ -28,7 +28,7 @@ def test_vector():
     assert m.temperature_c == pytest.approx(-40.0)
     assert m.supply_v == pytest.approx(3.3)
     assert (m.vendor_name, m.part_number, m.serial) == (
-        "HARROWGATE LAB",
+        "QUILLMOOR LAB",
         "HG-DD-DR4-01",
         "HGL0003",
     )

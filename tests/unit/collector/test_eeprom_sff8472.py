@@ -34,7 +34,7 @@ def test_vector_identity():
     assert m.pmd == "10GBASE-LR"
     # source: standards.md, SFF-8472 A0h bytes 60-61 wavelength in nm (unit: memory)
     assert m.wavelength_nm == 1310.0
-    assert m.vendor_name == "HARROWGATE LAB"
+    assert m.vendor_name == "QUILLMOOR LAB"
     assert m.part_number == "HG-SFP-LR-01"
     assert m.serial == "HGL0001"
     # source: standards.md, A0h byte 92 b5 internal / b3 average (verified)

@@ -25,7 +25,7 @@ def test_vector_identity():
     # wavelength bytes 186-187 in 0.05 nm steps (from memory)
     assert m.wavelength_nm == 1310.0
     assert (m.vendor_name, m.part_number, m.serial) == (
-        "HARROWGATE LAB",
+        "QUILLMOOR LAB",
         "HG-Q28-LR4-01",
         "HGL0002",
     )

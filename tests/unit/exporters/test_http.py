@@ -111,7 +111,7 @@ def test_accepts_gzip_header_parsing() -> None:
 
 def test_healthz_routes_and_errors(server: HttpServer) -> None:
     assert get(server.url + "/healthz")[::2] == (200, b"ok\n")
-    big = b"<p>Harrowgate Lab</p>" * 200
+    big = b"<p>Quillmoor Lab</p>" * 200
 
     def page(req: HttpRequest):
         assert req.query == {"sort": ["worst"]}

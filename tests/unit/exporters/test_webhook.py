@@ -25,7 +25,7 @@ from lightwarden.exporters.alerts.outbox import Outbox
 from lightwarden.exporters.alerts.webhook import SCHEMA, sign, verify
 
 FAST = RetryPolicy(base_s=0.02, cap_s=0.2, jitter=0.5)
-SECRET = "harrowgate-shared-secret-7f3a"
+SECRET = "quillmoor-shared-secret-7f3a"
 
 
 @pytest.fixture

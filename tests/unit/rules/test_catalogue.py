@@ -422,14 +422,14 @@ def test_find_in_text(text, expected):
 def test_site_additions_extend_and_replace():
     site = parse_catalogue(
         "name,clause,lanes,tx_min_dbm,tx_max_dbm,rx_overload_dbm,rx_min_avg_dbm,source\n"
-        "10GBASE-XR,,1,-6.5,0.5,1.5,-8.4,Harrowgate Lab acceptance sheet\n"
-        "10GBASE-LR,52,1,-8.2,0.5,-1.0,-14.4,Harrowgate Lab tighter overload\n",
+        "10GBASE-XR,,1,-6.5,0.5,1.5,-8.4,Quillmoor Lab acceptance sheet\n"
+        "10GBASE-LR,52,1,-8.2,0.5,-1.0,-14.4,Quillmoor Lab tighter overload\n",
         origin="site.csv",
     )
     cat = CAT.with_additions(site)
     assert len(cat) == len(CAT) + 1
     assert cat["10GBASE-LR"].rx_overload_dbm == -1.0
-    assert cat["10GBASE-LR"].source == "Harrowgate Lab tighter overload"
+    assert cat["10GBASE-LR"].source == "Quillmoor Lab tighter overload"
     assert cat.find_in_text("SFP+ 10GBASE-XR").name == "10GBASE-XR"
     assert CAT["10GBASE-LR"].rx_overload_dbm == 0.5  # the shipped table is untouched
 

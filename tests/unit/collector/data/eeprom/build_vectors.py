@@ -33,7 +33,7 @@ def sff8472(external: bool) -> bytes:
     a0[3] = 0x20  # 10GBASE-LR
     a0[12] = 103  # 10.3 GBd
     a0[14], a0[15] = 10, 100
-    text(a0, 20, 16, "HARROWGATE LAB")
+    text(a0, 20, 16, "QUILLMOOR LAB")
     text(a0, 40, 16, "HG-SFP-LR-01")
     text(a0, 56, 4, "A")
     u16(a0, 60, 1310)
@@ -80,7 +80,7 @@ def sff8636() -> bytes:
     m[131] = 0x80
     m[140] = 0xFF
     m[142] = 10
-    text(m, 148, 16, "HARROWGATE LAB")
+    text(m, 148, 16, "QUILLMOOR LAB")
     text(m, 168, 16, "HG-Q28-LR4-01")
     text(m, 184, 2, "B1")
     u16(m, 186, 1310 * 20)
@@ -110,7 +110,7 @@ def cmis() -> bytes:
     u16(m, 16, 0x80E8)
     m[85], m[86], m[87], m[88] = 0x02, 0x00, 0x1C, 0x44  # SMF, 400GBASE-DR4, 4 lanes
     m[at(1, 128)] = 0x18
-    text(m, at(1, 129), 16, "HARROWGATE LAB")
+    text(m, at(1, 129), 16, "QUILLMOOR LAB")
     text(m, at(1, 148), 16, "HG-DD-DR4-01")
     text(m, at(1, 164), 2, "01")
     text(m, at(1, 166), 16, "HGL0003")

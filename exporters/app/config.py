@@ -96,6 +96,10 @@ class Ssh(_Model):
 class Margins(_Model):
     sensitivity_db: float = Field(default=3.0, ge=0, le=20)
     overload_db: float = Field(default=1.0, ge=0, le=20)
+    #: the fixed attenuators the site stocks, dB: pad advice picks from these only
+    #: (default the common stock, standards.md "Rules of thumb", practice)
+    pads_db: list[Annotated[float, Field(gt=0, le=40)]] = Field(
+        default_factory=lambda: [1.0, 3.0, 5.0, 7.0, 10.0, 15.0, 20.0], min_length=1)
 
 
 class Conditions(_Model):

@@ -69,7 +69,7 @@ def _merged(base: AdviceContext, extra: AdviceContext) -> AdviceContext:
     changes = {f: getattr(extra, f) for f in (
         "far_device", "far_port", "far_tx_dbm", "far_tx_condition", "far_tx_min_dbm",
         "far_tx_max_dbm", "far_window_from", "span_loss_db", "span_loss_from",
-        "own_tx_min_dbm", "own_tx_max_dbm", "hysteresis_db")
+        "own_tx_min_dbm", "own_tx_max_dbm", "hysteresis_db", "pad_steps")
         if getattr(extra, f) not in (None, "")}
     return replace(base, **changes)
 
@@ -96,6 +96,7 @@ class MonitorParts:
     shared: SharedParts
     state_dir: Path  # where history, outbox and saved state live
     stale_after_s: float = 300.0  # a failed device's last readings leave the metrics then
+    pad_steps: tuple[float, ...] = ()  # the site's stocked pads; () is the common stock
 
 
 class Monitor:
@@ -420,6 +421,7 @@ class Monitor:
                     if loss is not None:
                         facts.update(span_loss_db=loss, span_loss_from="engineered")
             facts["hysteresis_db"] = self.parts.tracker.policy.hysteresis_db
+            facts["pad_steps"] = self.parts.pad_steps
             out[(optic.port, lane, Quantity.RX_POWER)] = AdviceContext(**facts)  # type: ignore[arg-type]
         return out
 

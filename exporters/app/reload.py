@@ -145,6 +145,7 @@ class Reloader:
         parts.make_sources = lambda: make_sources(new, base, catalogue, shared, state)
         parts.tracker.policy = policy
         parts.stale_after_s = new.poll.stale_after_s
+        parts.pad_steps = tuple(new.margins.pads_db)
         self.monitor.lifecycle.config = lc
         self.monitor.plant = plant
         self.monitor.exposition.set_margin_targets(targets.overload_db, targets.sensitivity_db)

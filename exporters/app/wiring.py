@@ -256,6 +256,7 @@ def build_monitor(
         shared=shared,
         state_dir=state,
         stale_after_s=cfg.poll.stale_after_s,
+        pad_steps=tuple(cfg.margins.pads_db),
     )
     own = SelfMetrics()
     parts.exposition.set_self_metrics(own)

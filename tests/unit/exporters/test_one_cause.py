@@ -8,6 +8,7 @@ alert, about the laser at qm-core-a, with the dark receiver referring to it.
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import yaml
@@ -84,3 +85,30 @@ def test_generator_url_links_each_alert_to_its_optic():
                           "?lane={lane}")
     assert doc["generatorURL"] == (f"http://qm-mon-a:9817/optic/{ev.device}/"
                                    f"{ev.port.replace('/', '%2F')}?lane={ev.lane}")
+
+
+def test_the_sites_stocked_pads_are_the_ones_advised(tmp_path: Path):
+    # lab story hot_receiver: qm-core-a sfp31, a 10GBASE-ER part on a short run. With
+    # only 2 and 4 dB pads in stock, the advice can name nothing else.
+    lab = Lab.load()
+    cfg = parse_config(yaml.safe_dump({
+        "margins": {"pads_db": [2, 4]},
+        "plant": lab_plant(lab),
+        "devices": [{"name": d, "host": "127.0.0.1", "credentials": "c"} for d in lab.devices],
+        "credentials": {"c": {"snmp_v2c": {"community": {"env": "UNUSED"}}}},
+    }), "lab")
+    monitor = build_monitor(cfg, base_dir=tmp_path)
+    sent: list = []
+    monitor.alert_sink = sent.extend
+    _poll(monitor, lab, "qm-core-b", NOW)
+    _poll(monitor, lab, "qm-core-a", NOW + 1)
+    hot = next(e for e in sent if (e.device, e.port, e.quantity) == ("qm-core-a", "sfp31",
+                                                                    Quantity.RX_POWER))
+    # Rx about +1.5 dBm, far Tx window -4.7..+4.0 dBm (10GBASE-ER, cl.52, from memory):
+    # it needs about 4.0-6.6 dB; a 4 dB pad fits only if the need is under 4.0 dB, else
+    # the advice says no stocked pad fits and gives the range a variable attenuator needs.
+    named = re.findall(r"fixed attenuator of (\S+) dB", hot.advice)
+    assert set(named) <= {"2", "4"}, hot.advice
+    if not named:
+        assert "No stocked pad fits" in hot.advice and "variable attenuator" in hot.advice
+    monitor.close()

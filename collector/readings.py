@@ -128,6 +128,8 @@ class OpticIdentity:
     #: "rx_power_high_alarm", ... (lane 0 for module-wide flags), from its memory map.
     flags: frozenset[tuple[str, int]] = frozenset()
     module_state: str = ""  # CMIS module state ("ready", "low_power", "fault", ...); "" unknown
+    #: the neighbour LLDP reports on this port: (system name, port name) as advertised
+    lldp_far: tuple[str, str] | None = None
 
     @property
     def key(self) -> tuple[str, str]:

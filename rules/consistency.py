@@ -55,6 +55,7 @@ class Mismatch(StrEnum):
     DWDM_CHANNEL = "dwdm-channel-mismatch"  # ends on different G.694.1 channels
     FIBRE_TYPE = "fibre-type-mismatch"  # single-mode optic on multimode plant or the reverse
     BEYOND_REACH = "beyond-reach"  # span longer than the PMD's reach on that fibre
+    PATCHING = "patching-differs"  # LLDP sees another far end than the plant record
 
 
 @dataclass(slots=True, frozen=True)
@@ -530,3 +531,62 @@ def consistency(plant: Plant, optics: Mapping[PortRef, OpticIdentity], catalogue
     spans = [sp for sp in plant.spans if devices is None
              or sp.a_device in devices or sp.b_device in devices]
     return out + check_spans(spans, lambda d, p: optics.get((d, p)), catalogue)
+
+
+# --- patching against the record (LLDP) -------------------------------------------------
+
+_PATCH_ADVICE = (
+    "Check the patching at both ends against the plant record and correct whichever is "
+    "wrong, the record or the patch cords: until then span loss and far-end advice for "
+    "these ports are worked out for the recorded pairing, not the real one."
+)
+
+
+def resolve_neighbour(lldp_far: tuple[str, str], devices: Collection[str]) -> PortRef | None:
+    """The configured (device, port) an LLDP neighbour names: the system name as a device
+    name, or its first label ("qm-dist-a.lab.example" is qm-dist-a); None when it is
+    none of ours."""
+    sys_name, port = lldp_far
+    by_name = {d.casefold(): d for d in devices}
+    name = sys_name.strip().casefold()
+    device = by_name.get(name) or by_name.get(name.split(".", 1)[0])
+    return (device, port) if device is not None else None
+
+
+def check_patching(optics: Iterable[OpticIdentity], plant: Plant, devices: Collection[str],
+                   ) -> list[Finding]:
+    """A finding for each plant record an end's LLDP contradicts: the neighbour is one of
+    our ports other than the record's far end (a patching error or a stale record). The
+    finding names the record (its ends in a fixed order, so both ends' views are one
+    finding); ports without a record or without a neighbour of ours give none."""
+    out: list[Finding] = []
+    for o in optics:
+        if o.lldp_far is None:
+            continue
+        seen = resolve_neighbour(o.lldp_far, devices)
+        record = plant.far_end(o.device, o.port)
+        if seen is None or record is None:
+            continue
+        if (seen[0], seen[1].casefold()) == (record[0], record[1].casefold()):
+            continue
+        (a_dev, a_port), (b_dev, b_port) = sorted([(o.device, o.port), record])
+        out.append(Finding(
+            Mismatch.PATCHING, Severity.WARNING, a_dev, a_port, b_dev, b_port,
+            f"the plant record pairs {o.device} {o.port} with {record[0]} {record[1]}, but "
+            f"LLDP on {o.device} {o.port} sees {seen[0]} {seen[1]}: the patching differs "
+            "from the record", _PATCH_ADVICE))
+    return out
+
+
+def discovered_links(optics: Iterable[OpticIdentity], plant: Plant,
+                     devices: Collection[str]) -> dict[PortRef, PortRef]:
+    """LLDP links of ports the plant has no record for, both ways: used as far ends."""
+    out: dict[PortRef, PortRef] = {}
+    for o in optics:
+        if o.lldp_far is None or plant.far_end(o.device, o.port) is not None:
+            continue
+        seen = resolve_neighbour(o.lldp_far, devices)
+        if seen is not None and plant.far_end(*seen) is None:
+            out[(o.device, o.port)] = seen
+            out[seen] = (o.device, o.port)
+    return out

@@ -22,6 +22,7 @@ from lightwarden.collector.readings import (
     ReadingStatus,
 )
 from lightwarden.collector.sensors import sensor_value
+from lightwarden.collector.snmp import lldp
 from lightwarden.collector.snmp.capture import CaptureSession
 from lightwarden.collector.snmp.credentials import SnmpCredentials
 from lightwarden.collector.snmp.fast import FastSession, SocketPool
@@ -281,6 +282,7 @@ class SnmpSource:
             sys_uptime=uptime,
             last_change=last_change,
         )
+        await self._read_neighbours(inventory)
         self._inventory = inventory
         self._maps_pending = self._eeprom_oid is not None
         self._map_notes = {}
@@ -315,6 +317,20 @@ class SnmpSource:
                 if value is not None:
                     tables[column][(row,)] = value
         return tables
+
+    async def _read_neighbours(self, inventory: Inventory) -> None:
+        """LLDP neighbours of the optics' ports (collector/snmp/lldp.py), at discovery.
+        An agent without the LLDP-MIB answers with empty tables: nothing is set."""
+        session = self._session
+        try:
+            loc = await session.walk_columns(lldp.LOC_COLUMNS, "LLDP-MIB local ports")
+            rem = await session.walk_columns(lldp.REM_COLUMNS, "LLDP-MIB neighbours")
+        except SnmpError as exc:
+            log.info("%s: LLDP neighbours not read (%s)", self._name, exc.message)
+            return
+        found = lldp.neighbours(loc, rem, {s.identity.port for s in inventory.optics})
+        for spec in inventory.optics:
+            spec.identity.lldp_far = found.get(spec.identity.port)
 
     def _maps_due(self, now: float) -> bool:
         return bool(stale_maps(self._maps, self._map_read_at, now, list(self._maps)))

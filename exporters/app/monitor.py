@@ -31,7 +31,14 @@ from lightwarden.exporters.store.history import History, HistoryError
 from lightwarden.rules.advice import AdviceContext
 from lightwarden.rules.assess import MarginTargets, assess
 from lightwarden.rules.catalogue import Catalogue, PmdSpec
-from lightwarden.rules.consistency import Finding, check_optic, check_spans, spans_by_device
+from lightwarden.rules.consistency import (
+    Finding,
+    check_optic,
+    check_patching,
+    check_spans,
+    discovered_links,
+    spans_by_device,
+)
 from lightwarden.rules.findings import (
     SEVERITY_OF,
     AlertEvent,
@@ -181,12 +188,24 @@ class Monitor:
         own = self._identities[device] = {o.port: o for o in batch.optics}
         found = [f for o in own.values() for f in check_optic(o, self.catalogue)]
         found += check_spans(self._spans_of.get(device, ()), self._identity, self.catalogue)
+        # LLDP: the patching against the record, and far ends for unrecorded ports
+        names = self._device_names()
+        found += check_patching(own.values(), self.plant, names)
+        for ref, far in discovered_links(own.values(), self.plant, names).items():
+            self.plant.far.setdefault(ref, far)
         for fkey in [k for k, f in self._findings.items() if f.involves(device)]:
             del self._findings[fkey]
         self._findings.update((f.key, f) for f in found)
         if not self._alerts_enabled:
             return []
         return self.link_alerts.observe(found, {device}, now)
+
+    def _device_names(self) -> set[str]:
+        """Devices an LLDP neighbour may be: ours (polled here) and the plant's."""
+        names = set(self._views) | (self._active or set())
+        for sp in self.plant.spans:
+            names.update((sp.a_device, sp.b_device))
+        return names
 
     # -- setup and teardown -----------------------------------------------------------
     def build_sources(self) -> list[PollSource]:

@@ -320,12 +320,19 @@ def test_check_shows_the_lab_consistency_stories(lab_process):
     cwdm = {("cwdm-channel-mismatch", "critical")}
     sm_on_mm = {("fibre-type-mismatch", "warning")}
     wrong = {("pmd-mismatch", "warning")}
+    # record_swapped: the two crossed records, contradicted by LLDP (IEEE 802.1AB) on the
+    # ports; each shows at both ends of its record
+    patch = {("patching-differs", "warning")}
     assert found == {
         ("qm-core-a", "sfp37"): bidi, ("qm-core-b", "sfp37"): bidi,
         ("qm-core-a", "sfp39"): cwdm, ("qm-core-b", "sfp39"): cwdm,
         ("qm-dist-a", "sfp41"): sm_on_mm, ("qm-dist-b", "sfp41"): sm_on_mm,
         ("qm-core-b", "sfp15"): wrong, ("qm-dist-b", "sfp15"): wrong,
+        ("qm-core-a", "sfp10"): patch, ("qm-dist-a", "sfp11"): patch,
+        ("qm-core-a", "sfp11"): patch, ("qm-dist-a", "sfp10"): patch,
     }
+    swapped = next(r for r in rows if (r["device"], r["port"]) == ("qm-core-a", "sfp10"))
+    assert "LLDP on" in swapped["findings"][0]["text"]
     cw = next(r for r in rows if (r["device"], r["port"]) == ("qm-core-a", "sfp39"))
     cw = cw["findings"][0]
     assert "1471 nm (channel 1471 nm) vs 1491 nm (channel 1491 nm), 20 nm apart" in cw["text"]

@@ -572,9 +572,9 @@ def check_patching(optics: Iterable[OpticIdentity], plant: Plant, devices: Colle
         (a_dev, a_port), (b_dev, b_port) = sorted([(o.device, o.port), record])
         out.append(Finding(
             Mismatch.PATCHING, Severity.WARNING, a_dev, a_port, b_dev, b_port,
-            f"the plant record pairs {o.device} {o.port} with {record[0]} {record[1]}, but "
-            f"LLDP on {o.device} {o.port} sees {seen[0]} {seen[1]}: the patching differs "
-            "from the record", _PATCH_ADVICE))
+            f"{a_dev} {a_port} / {b_dev} {b_port}: the plant record pairs these, but LLDP "
+            f"on {o.device} {o.port} sees {seen[0]} {seen[1]}: the patching differs from "
+            "the record", _PATCH_ADVICE))
     return out
 
 

@@ -45,6 +45,7 @@ def test_neighbours_resolve_to_our_devices_and_contradict_the_record():
     assert f.kind is Mismatch.PATCHING
     assert (f.device, f.port, f.far_device, f.far_port) == ("qm-far-1", "Eth8", "qm-near",
                                                             "sfp1")
+    assert f.text.startswith("qm-far-1 Eth8 / qm-near sfp1: ")  # the record's ends
     assert "LLDP on qm-near sfp1 sees qm-far-1 eth9" in f.text
     # agreeing (names compared case-insensitively) or outside our fleet: nothing
     ok = OpticIdentity(device="qm-near", port="sfp1", lldp_far=("qm-far-1", "eth8"))

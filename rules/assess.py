@@ -264,9 +264,11 @@ def assess(
                ReadingStatus.NO_LIGHT):
         note(unknown & (status == st), f"no usable value ({st.name.lower().replace('_', ' ')})")
 
+    # The module's own flags first: a TX_FAULT it flags says why its Tx is dark, so the
+    # bias reading is not taken for a laser switched off.
+    _module_flags(batch, (instant, strict), instant_edge, note)
     cause = _near_end_transmitters(batch, dark & (q == _TX), (instant, strict), instant_edge,
                                    note)
-    _module_flags(batch, (instant, strict), instant_edge, note)
     _lane_spread(batch, resolver, (instant, strict), instant_edge, note)
 
     unjudged = ok & (source == WindowSource.NONE)
@@ -346,6 +348,14 @@ def _near_end_transmitters(
         mark = np.zeros(len(batch), dtype=bool)
         mark[r] = True
         bias = float(batch.value[b])
+        if judged[0][r] == Condition.TX_FAULT:
+            # flagged by the module: the fault explains the zero (or any) bias
+            if bias <= LASER_OFF_BIAS_MA:
+                for arr in judged:
+                    arr[b] = Condition.TX_FAULT
+                edge[b] = Edge.NONE
+                cause[b] = alert_key(batch.device, batch.optics[o].port, lane, Quantity.TX_POWER)
+            continue
         if bias <= LASER_OFF_BIAS_MA:
             for arr in judged:
                 arr[r] = arr[b] = Condition.LASER_OFF

@@ -406,8 +406,10 @@ def _resolve_quantity(
             if not all(any(e[k] is not None for e in declared) for k in (0, 1)):
                 notes.append(OMA_NOTE)
         elif pmd_edges[0] is not None:
+            clause = pmd.oma_clause or pmd.clause
+            where = f"IEEE 802.3 cl.{clause}" if clause.isdigit() else (clause or "IEEE 802.3")
             notes.append(f"Rx judged in OMA: the standard's {pmd.name} OMA sensitivity "
-                         f"{pmd_edges[0]:.1f} dBm ({pmd.oma_clause or pmd.clause or 'IEEE 802.3'})")
+                         f"{pmd_edges[0]:.1f} dBm ({where})")
     if quantity is Quantity.RX_POWER and pmd is not None and not oma:
         _note_looser_module(module, pmd, notes)
     if quantity in (Quantity.RX_POWER, Quantity.TX_POWER) and optic.pmd:

@@ -521,7 +521,8 @@ class Monitor:
         # device learns its cause (and the far end's readings) on a second look.
         for n, view in enumerate(views):
             if view.assessment is not None:
-                merged = {**view.contexts, **self._far_ends(view.assessment)}
+                merged = {**view.contexts, **self._far_ends(view.assessment),
+                          **self._pad_facts(view.assessment)}
                 views[n] = self._views[view.outcome.device] = replace(
                     view, contexts=merged, links=self._links(view.assessment))
         return views

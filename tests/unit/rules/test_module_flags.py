@@ -81,3 +81,22 @@ def test_flags_follow_a_reread_map():
     assert ("tx_fault", 1) in identity.flags
     apply_to_identity(identity, facts_from_map(encode_sff8472()))
     assert ("tx_fault", 1) not in identity.flags
+
+
+def test_a_flagged_fault_with_the_laser_shut_down_is_a_fault_not_a_switched_off_laser():
+    # The module flags TX_FAULT and has shut its laser: Tx no light, bias 0 mA. The flag
+    # says why; the zero bias row is explained by it and raises nothing of its own.
+    from lightwarden.collector.readings import ReadingStatus
+    from lightwarden.rules.assess import LASER_OFF_NOTE
+    from lightwarden.rules.findings import alert_key
+
+    identity = OpticIdentity(device="qm-edge-c", port="sfp9", admin_up=True)
+    apply_to_identity(identity, facts_from_map(encode_sff8472(tx_fault=True)))
+    b = BatchBuilder("qm-edge-c")
+    o = b.add_optic(identity)
+    b.add(o, 1, TX, None, ReadingStatus.NO_LIGHT, "no light")
+    b.add(o, 1, BIAS, 0.0)
+    a = assess(b.build(0.0))
+    assert [Condition(int(c)) for c in a.condition] == [Condition.TX_FAULT] * 2
+    assert a.cause == {1: alert_key("qm-edge-c", "sfp9", 1, TX)}
+    assert LASER_OFF_NOTE not in a.notes.get(0, "") and "TX_FAULT" in a.notes[0]

@@ -358,6 +358,11 @@ def alert_key(device: str, port: str, lane: int, quantity: Quantity) -> str:
     return f"{_escape(device)}|{_escape(port)}|{lane}|{Quantity(quantity).label}"
 
 
+def split_alert_key(key: str) -> list[str]:
+    """The parts of an ``alert_key`` (device, port, lane, quantity), unescaped."""
+    return [p.replace("%7C", "|").replace("%25", "%") for p in key.split("|")]
+
+
 class AlertKind(StrEnum):
     """Which step of an alert's life an event is; the values are the words we send."""
 

@@ -37,6 +37,7 @@ from lightwarden.rules.findings import (
     Severity,
     WindowSource,
     alert_key,
+    split_alert_key,
 )
 
 # Phases of one key's track (see DEVELOPERS.md for the table).
@@ -602,13 +603,9 @@ def _facts(a: Assessment, i: int) -> _Facts:
     )
 
 
-def _unescape(part: str) -> str:
-    return part.replace("%7C", "|").replace("%25", "%")
-
-
 def _tracked_rows(batch: ReadingBatch, keys: set[str]) -> np.ndarray:
     """Rows of the batch on ports that have a track: the only healthy rows worth a key."""
-    ports = {_unescape(k.split("|")[1]) for k in keys}
+    ports = {split_alert_key(k)[1] for k in keys}
     optics = [n for n, o in enumerate(batch.optics) if o.port in ports]
     return np.isin(batch.optic, optics)
 

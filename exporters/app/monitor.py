@@ -389,7 +389,7 @@ class Monitor:
                 continue
             far_dev, far_port = ref
             far_tx, _ = self._far_tx(far_dev, far_port, lane)
-            far_rx = self._far_value(far_dev, far_port, lane, Quantity.RX_POWER)
+            far_rx, _ = self._far_reading(far_dev, far_port, lane, Quantity.RX_POWER)
             rx = here.get((port, lane, int(Quantity.RX_POWER)))
             tx = here.get((port, lane, int(Quantity.TX_POWER)))
             out[(port, lane)] = LinkLoss(
@@ -398,17 +398,6 @@ class Monitor:
                 loss_out_db=None if tx is None or far_rx is None else tx - far_rx,
                 engineered_db=self._engineered(far_dev, far_port, b.device, port))
         return out
-
-    def _far_value(self, device: str, port: str, lane: int, q: Quantity) -> float | None:
-        view = self._views.get(device)
-        fb = view.outcome.batch if view is not None else None
-        if fb is None:
-            return None
-        for j in np.flatnonzero((fb.quantity == int(q))
-                                & (fb.status == int(ReadingStatus.OK))).tolist():
-            if int(fb.lane[j]) == lane and fb.optics[int(fb.optic[j])].port == port:
-                return float(fb.value[j])
-        return None
 
     def _pad_facts(self, a: Assessment) -> dict[tuple[str, int, Quantity], AdviceContext]:
         """For each receiver on the overload side: what a worst-case pad must know (the
@@ -476,12 +465,18 @@ class Monitor:
         return None
 
     def _far_tx(self, device: str, port: str, lane: int) -> tuple[float | None, Condition | None]:
+        return self._far_reading(device, port, lane, Quantity.TX_POWER)
+
+    def _far_reading(self, device: str, port: str, lane: int, q: Quantity
+                     ) -> tuple[float | None, Condition | None]:
+        """One reading of another device's latest poll: its value (None without one) and
+        its held condition; (None, None) when that device or row is not known."""
         view = self._views.get(device)
         fa = view.assessment if view is not None else None
         if fa is None:
             return None, None
         fb = fa.batch
-        for j in np.flatnonzero(fb.quantity == int(Quantity.TX_POWER)).tolist():
+        for j in np.flatnonzero(fb.quantity == int(q)).tolist():
             if int(fb.lane[j]) == lane and fb.optics[int(fb.optic[j])].port == port:
                 value = float(fb.value[j])
                 return (value if np.isfinite(value) else None), Condition(int(fa.condition[j]))

@@ -22,6 +22,7 @@ from lightwarden.rules.findings import (
     Edge,
     Severity,
     WindowSource,
+    split_alert_key,
 )
 
 #: How the six edge columns are named on an Rx row.
@@ -169,7 +170,7 @@ def optic_rows(assessment: Assessment, targets: MarginTargets | None = None,
 
 def cause_words(key: str) -> str:
     """An alert key ("dev|port|lane|quantity") as people read it: "dev port lane 1 Tx"."""
-    parts = [p.replace("%7C", "|").replace("%25", "%") for p in key.split("|")]
+    parts = split_alert_key(key)
     if len(parts) != 4:
         return key
     device, port, lane, quantity = parts

@@ -35,6 +35,7 @@ import math
 import threading
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -499,6 +500,20 @@ def render_device(
     return out, skipped
 
 
+def _render_from(source: Callable[[], Iterable[Any]] | None,
+                 render: Callable[[list[Any]], bytes], name: str, what: str) -> bytes:
+    """A family rendered at scrape time from ``source``; b"" when there is none, and when
+    the source fails (logged): a broken source must not break the scrape."""
+    if source is None:
+        return b""
+    try:
+        items = list(source())
+    except Exception as exc:
+        log.error("%s failed (%s); %s left out of this scrape", name, type(exc).__name__, what)
+        return b""
+    return render(items)
+
+
 def _format_wavelength(nm: float) -> str:
     if not math.isfinite(nm):
         return ""
@@ -690,17 +705,7 @@ class Exposition:
 
     def alerts_text(self) -> bytes:
         """The open-alert family, rendered now from the alert source (b"" when none)."""
-        source = self._alerts
-        if source is None:
-            return b""
-        try:
-            events = list(source())
-        except Exception as exc:  # a broken source must not break the scrape
-            log.error(
-                "alert source failed (%s); open alerts left out of this scrape", type(exc).__name__
-            )
-            return b""
-        return render_alerts(events)
+        return _render_from(self._alerts, render_alerts, "alert source", "open alerts")
 
     def scrape(self, compressed: bool = False) -> list[bytes]:
         """The exposition as parts to send back to back (no copy of the large body).
@@ -720,29 +725,15 @@ class Exposition:
 
     def _scrape(self, compressed: bool) -> list[bytes]:
         parts = [self._device_part(compressed)]
-        alerts = self.alerts_text()
-        if alerts:
-            parts.append(_gz(alerts, self._gzip_level) if compressed else alerts)
-        links = self.links_text()
-        if links:
-            parts.append(_gz(links, self._gzip_level) if compressed else links)
         extra = self._extra() if self._extra is not None else b""
-        if extra:
-            parts.append(_gz(extra, self._gzip_level) if compressed else extra)
+        for text in (self.alerts_text(), self.links_text(), extra):
+            if text:
+                parts.append(_gz(text, self._gzip_level) if compressed else text)
         return parts
 
     def links_text(self) -> bytes:
         """The consistency family, rendered now from the link source (b"" when none)."""
-        source = self._links
-        if source is None:
-            return b""
-        try:
-            findings = list(source())
-        except Exception as exc:  # a broken source must not break the scrape
-            log.error("link source failed (%s); findings left out of this scrape",
-                      type(exc).__name__)
-            return b""
-        return render_links(findings)
+        return _render_from(self._links, render_links, "link source", "findings")
 
     def body(self) -> bytes:
         """The full exposition, text format 0.0.4, as one bytes object."""

@@ -41,8 +41,9 @@ pytestmark = [pytest.mark.external]
 
 DEVICE, PORT = "qm-core-b", "sfp12"
 PERIOD_S = 1800.0  # the hover story's period (lab.yaml)
-BELOW = 0.75 * PERIOD_S  # sin = -1: -15.3 dBm, 0.3 dB below the target
-ABOVE = 0.25 * PERIOD_S  # sin = +1: -14.7 dBm, above the target, inside the hysteresis
+# hover centre -11.4 dBm = 3 dB above the 10GBASE-LR -14.4 dBm edge (lab.yaml), swing 0.3
+BELOW = 0.75 * PERIOD_S  # sin = -1: -11.7 dBm, 0.3 dB below the target
+ABOVE = 0.25 * PERIOD_S  # sin = +1: -11.1 dBm, above the target, inside the hysteresis
 _URL = re.compile(r"metrics at (http://\S+)/metrics")
 
 
